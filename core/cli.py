@@ -118,6 +118,9 @@ def build_parser() -> argparse.ArgumentParser:
                     "line per problem; exit status 0 if every file is valid, 2 otherwise.")
     check.add_argument("files", nargs="+", metavar="FILE", help="YAML file to check")
     check.set_defaults(func=_cmd_check)
+    from .cli_solve import add_parsers
+
+    add_parsers(sub, fmt, HARDWARE_CAUTION)
     sub.add_parser("bench", add_help=False, help="run the benchmarks (kipup bench --help for options)")
     return parser
 

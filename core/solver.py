@@ -1,0 +1,246 @@
+"""Solving a trick with IPOPT: cold and warm solves, progress events, cancel and time limit.
+
+A :class:`TrickSolver` keeps one built :class:`~kipup.core.transcription.TrickProblem`
+and two IPOPT instances over it: a cold one (from the keyframe guess) and a warm one
+(from the previous solution, primal and dual), built on first use. ``solve(trick)`` with a
+trick of the same structure re-solves without a rebuild; a different structure rebuilds.
+
+CasADi releases the GIL while IPOPT runs (measured: see DEVELOPERS.md), so a solve can run
+in a thread and keep a notebook kernel responsive; the progress callback takes the GIL for
+as long as it runs, so keep it short.
+"""
+from __future__ import annotations
+
+import threading
+import time
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import casadi as ca
+import numpy as np
+
+from .guess import initial_guess
+from .robot import Robot
+from .transcription import TrickProblem, structure_key
+from .trick import Trick
+
+COLD_OPTIONS = {
+    "ipopt.mu_strategy": "monotone",
+    "ipopt.mu_init": 0.1,
+    "ipopt.linear_solver": "mumps",
+}
+WARM_OPTIONS = {
+    "ipopt.mu_strategy": "monotone",
+    "ipopt.mu_init": 1e-4,
+    "ipopt.warm_start_init_point": "yes",
+    "ipopt.warm_start_bound_push": 1e-8,
+    "ipopt.warm_start_bound_frac": 1e-8,
+    "ipopt.warm_start_slack_bound_push": 1e-8,
+    "ipopt.warm_start_slack_bound_frac": 1e-8,
+    "ipopt.warm_start_mult_bound_push": 1e-8,
+    "ipopt.linear_solver": "mumps",
+}
+
+STATUS = {
+    "Solve_Succeeded": "solved",
+    "Solved_To_Acceptable_Level": "acceptable",
+    "Infeasible_Problem_Detected": "infeasible",
+    "Maximum_Iterations_Exceeded": "max_iter",
+    "Maximum_WallTime_Exceeded": "time_limit",
+    "Maximum_CpuTime_Exceeded": "time_limit",
+    "User_Requested_Stop": "cancelled",
+}
+
+
+@dataclass
+class Progress:
+    """One IPOPT iteration: objective, constraint violation (max, scaled units), elapsed s."""
+
+    iteration: int
+    objective: float
+    infeasibility: float
+    elapsed: float
+    x: np.ndarray  # scaled decision vector; decode with TrickSolver.problem.unpack
+
+
+@dataclass
+class SolveOutcome:
+    """Raw result of one solve: status word, scaled x, multipliers, timings (s)."""
+
+    status: str
+    ipopt_status: str
+    iterations: int
+    objective: float
+    x: np.ndarray
+    lam_x: np.ndarray
+    lam_g: np.ndarray
+    solve_time: float
+    build_time: float
+    warm: bool
+    max_violation: float
+
+    @property
+    def success(self) -> bool:
+        return self.status in ("solved", "acceptable")
+
+
+class _Iterations(ca.Callback):
+    """IPOPT iteration callback forwarding to the solver's current listener."""
+
+    def __init__(self, owner: "TrickSolver", nx: int, ng: int, npar: int) -> None:
+        ca.Callback.__init__(self)
+        self.owner = owner
+        self.sizes = {"x": (nx, 1), "f": (1, 1), "g": (ng, 1), "lam_x": (nx, 1), "lam_g": (ng, 1),
+                      "lam_p": (npar, 1)}
+        self.construct("kipup_iterations", {})
+
+    def get_n_in(self) -> int:
+        return ca.nlpsol_n_out()
+
+    def get_n_out(self) -> int:
+        return 1
+
+    def get_name_in(self, i: int) -> str:
+        return ca.nlpsol_out(i)
+
+    def get_name_out(self, i: int) -> str:
+        return "ret"
+
+    def get_sparsity_in(self, i: int) -> ca.Sparsity:
+        return ca.Sparsity.dense(*self.sizes[ca.nlpsol_out(i)])
+
+    def eval(self, arg: list) -> list:
+        stop = self.owner._on_iteration(arg)
+        return [1 if stop else 0]
+
+
+class TrickSolver:
+    """Builds the NLP of a trick once and solves it, cold or warm, as often as asked."""
+
+    def __init__(self, trick: Trick, robot: Robot, max_iter: int | None = None) -> None:
+        self.robot = robot
+        t0 = time.perf_counter()
+        self.problem = TrickProblem(trick, robot)
+        self._max_iter = max_iter
+        self._solvers: dict[str, ca.Function] = {}
+        self._callback = _Iterations(self, self.problem.x.n, int(self.problem.nlp["g"].numel()),
+                                     self.problem.p.n)
+        self._listener: Callable[[Progress], Any] | None = None
+        self._cancel: threading.Event | None = None
+        self._deadline = np.inf
+        self._started = 0.0
+        self._iter = 0
+        self._stopped_for: str | None = None
+        self._bounds: tuple | None = None
+        self.last: SolveOutcome | None = None
+        self.build_time = time.perf_counter() - t0
+
+    # --- structure --------------------------------------------------------------
+    def fits(self, trick: Trick) -> bool:
+        """True if ``trick`` has this solver's structure (a re-solve needs no rebuild)."""
+        return structure_key(trick, self.robot) == self.problem.key
+
+    def _solver(self, kind: str, trick: Trick) -> ca.Function:
+        if kind not in self._solvers:
+            opts = dict(COLD_OPTIONS if kind == "cold" else WARM_OPTIONS)
+            opts.update({
+                "ipopt.max_iter": int(self._max_iter or trick.solver.max_iter),
+                "ipopt.tol": float(trick.solver.tol),
+                "ipopt.print_level": int(trick.solver.print_level),
+                "print_time": False,
+                "ipopt.sb": "yes",
+                "iteration_callback": self._callback,
+                "error_on_fail": False,
+            })
+            t0 = time.perf_counter()
+            self._solvers[kind] = ca.nlpsol(f"kipup_{kind}", "ipopt", self.problem.nlp, opts)
+            self.build_time += time.perf_counter() - t0
+        return self._solvers[kind]
+
+    def prepare(self, trick: Trick, warm: bool = True) -> None:
+        """Build the IPOPT instances now (cold, and warm if asked) instead of at first solve."""
+        self._solver("cold", trick)
+        if warm:
+            self._solver("warm", trick)
+
+    # --- solving ----------------------------------------------------------------
+    def solve(self, trick: Trick, warm: bool | None = None,
+              on_progress: Callable[[Progress], Any] | None = None,
+              cancel: threading.Event | None = None, time_limit: float | None = None,
+              x0: np.ndarray | None = None) -> SolveOutcome:
+        """Solve ``trick`` (same structure as this solver).
+
+        warm: start from the last solution (default: when there is a successful one).
+        on_progress: called after every IPOPT iteration with a :class:`Progress`.
+        cancel: setting this event stops the solve at the next iteration (status 'cancelled').
+        time_limit: wall-clock seconds (default ``trick.solver.time_limit``), status 'time_limit'.
+        """
+        if not self.fits(trick):
+            raise ValueError("this trick's structure differs from the solver's: build a new TrickSolver")
+        prob = self.problem
+        if warm is None:
+            warm = self.last is not None and self.last.success
+        warm = bool(warm and self.last is not None)
+        t_build0 = self.build_time
+        S = self._solver("warm" if warm else "cold", trick)
+        lbx, ubx, lbg, ubg = prob.bounds(trick)
+        self._bounds = (lbg, ubg)
+        p = prob.parameters(trick)
+        args: dict[str, Any] = dict(p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg)
+        if warm:
+            args.update(x0=np.clip(self.last.x, lbx, ubx), lam_x0=self.last.lam_x, lam_g0=self.last.lam_g)
+        else:
+            guess = initial_guess(prob, trick) if x0 is None else np.asarray(x0, float)
+            args["x0"] = np.clip(guess, lbx, ubx)
+        self._listener, self._cancel = on_progress, cancel
+        limit = trick.solver.time_limit if time_limit is None else time_limit
+        self._started = time.perf_counter()
+        self._deadline = self._started + float(limit)
+        self._iter, self._stopped_for = 0, None
+        try:
+            sol = S(**args)
+            ipopt_status = S.stats().get("return_status", "unknown")
+            iterations = int(S.stats().get("iter_count", self._iter))
+        except RuntimeError as exc:  # IPOPT or CasADi failure: report, never raise
+            sol, ipopt_status, iterations = None, f"error: {exc}", self._iter
+        finally:
+            self._listener, self._cancel = None, None
+        elapsed = time.perf_counter() - self._started
+        if sol is None:
+            x = args["x0"]
+            outcome = SolveOutcome("failed", ipopt_status, iterations, float("nan"), x,
+                                   np.zeros_like(x), np.zeros(len(lbg)), elapsed,
+                                   self.build_time - t_build0, warm, float("inf"))
+            return outcome
+        status = STATUS.get(ipopt_status, "failed")
+        if status == "cancelled" and self._stopped_for:
+            status = self._stopped_for
+        x = np.asarray(sol["x"]).ravel()
+        g = np.asarray(sol["g"]).ravel()
+        viol = float(np.max(np.maximum(lbg - g, 0) + np.maximum(g - ubg, 0), initial=0.0))
+        outcome = SolveOutcome(status, ipopt_status, iterations, float(sol["f"]), x,
+                               np.asarray(sol["lam_x"]).ravel(), np.asarray(sol["lam_g"]).ravel(),
+                               elapsed, self.build_time - t_build0, warm, viol)
+        if not np.all(np.isfinite(x)):
+            outcome.status = "failed"
+        if outcome.success:
+            self.last = outcome
+        return outcome
+
+    def _on_iteration(self, arg: list) -> bool:
+        """Called by IPOPT (through CasADi) once per iteration; True asks it to stop."""
+        self._iter += 1
+        now = time.perf_counter()
+        if self._cancel is not None and self._cancel.is_set():
+            self._stopped_for = "cancelled"
+            return True
+        if now > self._deadline:
+            self._stopped_for = "time_limit"
+            return True
+        if self._listener is not None:
+            lbg, ubg = self._bounds
+            g = np.asarray(arg[2]).ravel()
+            inf = float(np.max(np.maximum(lbg - g, 0) + np.maximum(g - ubg, 0), initial=0.0))
+            self._listener(Progress(self._iter, float(arg[1]), inf, now - self._started,
+                                    np.asarray(arg[0]).ravel()))
+        return False
