@@ -32,6 +32,8 @@ from typing import Any, Callable
 
 import numpy as np
 
+from . import bench_optimizer as _bench_optimizer
+
 DEFAULT_ROBOTS = ("humanoid", "quadruped")
 
 
@@ -220,11 +222,16 @@ def _run_dynamics(args: argparse.Namespace) -> int:
 #: name -> (help, add_arguments(parser), run(args) -> exit status)
 SUBCOMMANDS: dict[str, tuple[str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int]]] = {
     "dynamics": ("compiled RNEA / ABA against Pinocchio", _add_dynamics_arguments, _run_dynamics),
+    "optimizer": ("cold and warm trick solves per template", _bench_optimizer.add_arguments,
+                  _bench_optimizer.run),
 }
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="kipup bench", description="kipup benchmarks")
+    caution = ("Caution: simulate every trajectory first, and run it on hardware only under "
+               "your lab's safety rules and local regulations.")
+    parser = argparse.ArgumentParser(prog="kipup bench", description="kipup benchmarks", epilog=caution,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = parser.add_subparsers(dest="command", metavar="SUBCOMMAND", required=True)
     for name, (help_text, add_arguments, _) in SUBCOMMANDS.items():
         p = sub.add_parser(name, help=help_text, description=help_text)

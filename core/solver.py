@@ -31,7 +31,7 @@ COLD_OPTIONS = {
 }
 WARM_OPTIONS = {
     "ipopt.mu_strategy": "monotone",
-    "ipopt.mu_init": 1e-4,
+    "ipopt.mu_init": 1e-3,
     "ipopt.warm_start_init_point": "yes",
     "ipopt.warm_start_bound_push": 1e-8,
     "ipopt.warm_start_bound_frac": 1e-8,

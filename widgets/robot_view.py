@@ -27,6 +27,7 @@ import numpy as np
 import pythreejs as three
 
 from kipup.core.robot import Robot
+from kipup.core.kinematics import center_of_mass, link_poses
 
 __all__ = [
     "RobotView",
@@ -65,30 +66,17 @@ def _z_quaternion(angle: float) -> tuple[float, float, float, float]:
 
 
 def planar_link_poses(robot: Robot, q: Sequence[float]) -> list[tuple[np.ndarray, float]]:
-    """World pose ``(position (2,), angle)`` of every link frame, in the order of ``robot.links``.
-
-    The base frame sits at ``(q[0], q[1])`` with angle ``q[2]``; ``joints[k]`` puts ``links[k + 1]``
-    at ``p_parent + E(theta_parent) @ origin`` with angle ``theta_parent + q[3 + k]``.
-    """
+    """World pose ``(position (2,), angle)`` of every link frame, in the order of ``robot.links``
+    (from :func:`kipup.core.kinematics.link_poses`)."""
     q = np.asarray(q, dtype=float)
     if q.shape != (robot.nq,):
         raise ValueError(f"q must have length {robot.nq} for robot {robot.name!r}, got shape {q.shape}")
-    poses: list[tuple[np.ndarray, float]] = [(np.array([q[0], q[1]]), float(q[2]))]
-    index = {robot.links[0].name: 0}
-    for k, joint in enumerate(robot.joints):
-        p_parent, th_parent = poses[index[joint.parent]]
-        p = p_parent + rot(th_parent) @ np.asarray(joint.origin, dtype=float)
-        poses.append((p, th_parent + float(q[3 + k])))
-        index[joint.child] = k + 1
-    return poses
+    return [(np.array([x, z], dtype=float), float(th)) for x, z, th in link_poses(robot, q)]
 
 
 def planar_center_of_mass(robot: Robot, q: Sequence[float]) -> np.ndarray:
     """Whole-robot centre of mass ``(x, z)`` (m) in the world frame."""
-    total = np.zeros(2)
-    for link, (p, th) in zip(robot.links, planar_link_poses(robot, q)):
-        total += link.mass * (p + rot(th) @ np.asarray(link.com, dtype=float))
-    return total / robot.total_mass
+    return np.asarray(center_of_mass(robot, np.asarray(q, dtype=float)), dtype=float)
 
 
 def _lowest_capsule_z(robot: Robot, q: Sequence[float]) -> float | None:
