@@ -33,12 +33,12 @@ import json
 import math
 import os
 from dataclasses import dataclass, field, fields
-from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
 
 from . import __version__ as _KIPUP_VERSION
+from .atomic import atomic_write
 
 __all__ = [
     "MOTION_FORMAT",
@@ -803,7 +803,7 @@ class Motion:
             rows = ",\n".join("    " + json.dumps(row, allow_nan=False) for row in a.tolist())
             parts.append(f"  {json.dumps(name)}: [\n{rows}\n  ]")
         text = "{\n" + ",\n".join(parts) + "\n}\n"
-        _atomic_write(path, lambda f: f.write(text.encode("utf-8")))
+        atomic_write(path, lambda f: f.write(text.encode("utf-8")))
 
     @classmethod
     def from_json(cls, path: str | os.PathLike[str]) -> "Motion":
@@ -819,7 +819,7 @@ class Motion:
         self.check_finite()
         meta = json.dumps(self._meta_dict(), allow_nan=False)
         arrays = {name: getattr(self, name) for name in _ARRAYS}
-        _atomic_write(path, lambda f: np.savez(f, **{_NPZ_META: np.array(meta)}, **arrays))
+        atomic_write(path, lambda f: np.savez(f, **{_NPZ_META: np.array(meta)}, **arrays))
 
     @classmethod
     def from_npz(cls, path: str | os.PathLike[str]) -> "Motion":
@@ -843,31 +843,3 @@ def _need(d: dict[str, Any], key: str) -> Any:
 
 def _close(a: float, b: float) -> bool:
     return abs(a - b) <= 1e-9 * (1.0 + abs(b))
-
-
-def _atomic_write(path: str | os.PathLike[str], write: Any) -> None:
-    """Write via a temp file in the target's folder, then os.replace; the temp file goes on failure."""
-    target = Path(os.path.abspath(os.fspath(path)))
-    folder = target.parent
-    # os.open with 0o666 lets the umask decide the mode, as for a plain open(path, "w")
-    for n in range(100):
-        tmp = folder / f".{target.name}.{os.getpid()}.{os.urandom(4).hex()}.tmp"
-        try:
-            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0), 0o666)
-            break
-        except FileExistsError:
-            continue
-    else:  # pragma: no cover
-        raise OSError(f"could not create a temporary file in {folder}")
-    try:
-        with os.fdopen(fd, "wb") as f:
-            write(f)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise

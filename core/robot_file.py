@@ -51,7 +51,6 @@ import json
 import math
 import os
 import re
-import tempfile
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
@@ -61,6 +60,7 @@ from typing import Any, Iterable
 import jsonschema
 import yaml
 
+from .atomic import atomic_write_text
 from .lumping import is_paired, lump_pair, unlump_pair
 from .robot import BASE_COORDS, Actuator, Capsule, Joint, Link, Point, Robot
 
@@ -124,6 +124,7 @@ def _format_path(parts: Iterable[Any]) -> str:
 
 
 def _join(path: str, key: Any) -> str:
+    """``path`` extended by a mapping key (``a.b``) or a list index (``a[3]``); shared with trick files."""
     if isinstance(key, int) and not isinstance(key, bool):
         return f"{path}[{key}]"
     return f"{key}" if path in ("", DOCUMENT) else f"{path}.{key}"
@@ -237,11 +238,15 @@ def robot_schema() -> dict:
     return json.loads(_schema_text())
 
 
-@lru_cache(maxsize=1)
-def _validator() -> jsonschema.Draft202012Validator:
-    schema = robot_schema()
+def _checked_validator(schema: dict) -> jsonschema.Draft202012Validator:
+    """A Draft 2020-12 validator of ``schema``, after checking the schema itself (shared with trick files)."""
     jsonschema.Draft202012Validator.check_schema(schema)
     return jsonschema.Draft202012Validator(schema)
+
+
+@lru_cache(maxsize=1)
+def _validator() -> jsonschema.Draft202012Validator:
+    return _checked_validator(robot_schema())
 
 
 _TYPE_WORDS = {
@@ -251,6 +256,7 @@ _TYPE_WORDS = {
 
 
 def _describe(value: Any) -> str:
+    """How a problem message names a wrong value: ``the string 'x'``, ``a list of 3``, ``null``..."""
     if value is None:
         return "null"
     if isinstance(value, bool):
@@ -264,6 +270,13 @@ def _describe(value: Any) -> str:
     if isinstance(value, (int, float)):
         return repr(value)
     return f"{type(value).__name__} {value!r}"
+
+
+def _type_message(expected: Any, instance: Any) -> str:
+    """The message of a schema ``type`` error: ``must be a number or null (got the string 'x')``."""
+    types = expected if isinstance(expected, list) else [expected]
+    want = " or ".join(_TYPE_WORDS.get(t, t) for t in types)
+    return f"must be {want} (got {_describe(instance)})"
 
 
 def _schema_problems(data: Any) -> list[Problem]:
@@ -289,9 +302,7 @@ def _schema_problems(data: Any) -> list[Problem]:
                                          f"; allowed: {', '.join(allowed)}")
                 problems.append(Problem(_join(path, extra), msg))
         elif kind == "type":
-            types = value if isinstance(value, list) else [value]
-            want = " or ".join(_TYPE_WORDS.get(t, t) for t in types)
-            problems.append(Problem(path, f"must be {want} (got {_describe(inst)})"))
+            problems.append(Problem(path, _type_message(value, inst)))
         elif kind == "exclusiveMinimum":
             problems.append(Problem(path, f"must be > {value} (got {inst!r})"))
         elif kind == "minimum":
@@ -635,15 +646,15 @@ def load_robot(source: str | os.PathLike[str]) -> Robot:
 
 
 class _FlowMap(dict):
-    pass
+    """A mapping the YAML dumper writes in flow style (``{a: 1, b: 2}``); shared with trick files."""
 
 
 class _FlowSeq(list):
-    pass
+    """A list the YAML dumper writes in flow style (``[1, 2]``); shared with trick files."""
 
 
 class _Dumper(yaml.SafeDumper):
-    pass
+    """The safe YAML dumper of kipup files, writing :class:`_FlowMap` and :class:`_FlowSeq` in flow style."""
 
 
 _Dumper.add_representer(_FlowMap, lambda d, v: d.represent_mapping("tag:yaml.org,2002:map", v, flow_style=True))
@@ -682,28 +693,7 @@ def save_robot(robot: Robot, path: str | os.PathLike[str]) -> None:
 
     Refuses (RobotFileError, nothing written) if the robot would not load back.
     """
-    text = robot_to_yaml(robot)
-    target = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        try:
-            mode = target.stat().st_mode & 0o7777
-        except FileNotFoundError:
-            umask = os.umask(0)
-            os.umask(umask)
-            mode = 0o666 & ~umask
-        os.chmod(tmp, mode)
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    atomic_write_text(path, robot_to_yaml(robot))
 
 
 # ---------------------------------------------------------------------------------------

@@ -41,6 +41,9 @@ WARM_OPTIONS = {
     "ipopt.linear_solver": "mumps",
 }
 
+FEASIBLE_TOL = 1e-6  # max scaled constraint violation of a point that counts as feasible
+NEAR_SOLVED = ("Error_In_Step_Computation", "Restoration_Failed", "Infeasible_Problem_Detected")
+
 STATUS = {
     "Solve_Succeeded": "solved",
     "Solved_To_Acceptable_Level": "acceptable",
@@ -221,6 +224,9 @@ class TrickSolver:
         outcome = SolveOutcome(status, ipopt_status, iterations, float(sol["f"]), x,
                                np.asarray(sol["lam_x"]).ravel(), np.asarray(sol["lam_g"]).ravel(),
                                elapsed, self.build_time - t_build0, warm, viol)
+        if (status in ("failed", "infeasible") and viol <= FEASIBLE_TOL
+                and ipopt_status in NEAR_SOLVED and np.all(np.isfinite(x))):
+            outcome.status = "acceptable"  # a point that violates nothing, though not proven optimal
         if not np.all(np.isfinite(x)):
             outcome.status = "failed"
         if outcome.success:

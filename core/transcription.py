@@ -406,6 +406,10 @@ class TrickProblem:
             dv = V[:, 1:] - V[:, :-1] - h / 2 * (A[:, :-1] + A[:, 1:])
             dq = Q[:, 1:] - Q[:, :-1] - h * V[:, :-1] - h ** 2 / 6 * (2 * A[:, :-1] + A[:, 1:])
             add(f"defect_v{i}", dv / 5.0, 0.0, 0.0)
+            # joint speed limits also at interval midpoints (qd is quadratic between knots)
+            vmid = V[3:, :-1] + h / 8 * (3 * A[3:, :-1] + A[3:, 1:])
+            vlim = np.tile(np.asarray(r.velocity_limit), N)
+            add(f"speed_mid{i}", vmid, -vlim, vlim)
             add(f"defect_q{i}", dq, 0.0, 0.0)
             # torque rate and contact-force smoothness
             peak = ca.DM(np.asarray(r.peak_torque))

@@ -59,7 +59,6 @@ import math
 import numbers
 import os
 import re
-import tempfile
 from dataclasses import fields
 from functools import lru_cache
 from importlib import resources
@@ -69,11 +68,19 @@ from typing import Any, Iterable
 import jsonschema
 import yaml
 
+from .atomic import atomic_write_text
 from .robot import Robot
 from .robot_file import (
     DOCUMENT,
     Problem,
     RobotFileError,
+    _checked_validator,
+    _Dumper,
+    _FlowMap,
+    _FlowSeq,
+    _describe,
+    _join,
+    _type_message,
     bundled_robot_names,
     load_bundled,
     load_robot,
@@ -133,12 +140,6 @@ class TrickFileError(ValueError):
         return "\n".join(str(p) for p in self.problems)
 
 
-def _join(path: str, key: Any) -> str:
-    if isinstance(key, int) and not isinstance(key, bool):
-        return f"{path}[{key}]"
-    return f"{key}" if path in ("", DOCUMENT) else f"{path}.{key}"
-
-
 def _format_path(parts: Iterable[Any]) -> str:
     out = DOCUMENT
     for part in parts:
@@ -184,31 +185,7 @@ def trick_schema() -> dict:
 
 @lru_cache(maxsize=1)
 def _validator() -> jsonschema.Draft202012Validator:
-    schema = trick_schema()
-    jsonschema.Draft202012Validator.check_schema(schema)
-    return jsonschema.Draft202012Validator(schema)
-
-
-_TYPE_WORDS = {
-    "number": "a number", "integer": "an integer", "string": "a string", "object": "a mapping",
-    "array": "a list", "null": "null", "boolean": "true or false",
-}
-
-
-def _describe(value: Any) -> str:
-    if value is None:
-        return "null"
-    if isinstance(value, bool):
-        return f"{str(value).lower()} (a boolean)"
-    if isinstance(value, str):
-        return f"the string {value!r}"
-    if isinstance(value, dict):
-        return "a mapping"
-    if isinstance(value, list):
-        return f"a list of {len(value)}"
-    if isinstance(value, (int, float)):
-        return repr(value)
-    return f"{type(value).__name__} {value!r}"
+    return _checked_validator(trick_schema())
 
 
 def _schema_problems(data: Any) -> list[Problem]:
@@ -229,9 +206,7 @@ def _schema_problems(data: Any) -> list[Problem]:
                 out.append(Problem(_join(path, extra), f"unknown field {extra!r}"
                                    + (hint if hint else f"; allowed fields: {', '.join(allowed)}")))
         elif kind == "type":
-            types = value if isinstance(value, list) else [value]
-            want = " or ".join(_TYPE_WORDS.get(t, t) for t in types)
-            out.append(Problem(path, f"must be {want} (got {_describe(inst)})"))
+            out.append(Problem(path, _type_message(value, inst)))
         elif kind == "exclusiveMinimum" and value == 0:
             out.append(Problem(path, f"must be positive (got {inst!r})"))
         elif kind == "exclusiveMinimum":
@@ -283,7 +258,12 @@ def _nonfinite_problems(data: Any, path: str, out: list[Problem], seen: set[int]
         for key, value in items:
             _nonfinite_problems(value, _join(path, key), out, seen)
     elif _is_number(data) and _finite(data) is None:
-        if math.isnan(float(data)):
+        try:
+            value = float(data)
+        except OverflowError:
+            out.append(Problem(path, "is too large to be a number"))
+            return
+        if math.isnan(value):
             out.append(Problem(path, "must be a finite number, not NaN"))
         else:
             out.append(Problem(path, f"must be a finite number (got {'-' if data < 0 else ''}infinity)"))
@@ -764,22 +744,6 @@ def trick_to_dict(trick: Trick) -> dict[str, Any]:
     return out
 
 
-class _FlowMap(dict):
-    pass
-
-
-class _FlowSeq(list):
-    pass
-
-
-class _Dumper(yaml.SafeDumper):
-    pass
-
-
-_Dumper.add_representer(_FlowMap, lambda d, v: d.represent_mapping("tag:yaml.org,2002:map", v, flow_style=True))
-_Dumper.add_representer(_FlowSeq, lambda d, v: d.represent_sequence("tag:yaml.org,2002:seq", v, flow_style=True))
-
-
 def _styled(data: dict) -> dict:
     """Small things on one line: contacts, poses, terrain items, reach goals, landing_x."""
     d = copy.deepcopy(data)
@@ -830,26 +794,7 @@ def save_trick(trick: Trick, path: str | os.PathLike[str], *, check_robot: bool 
         problems, _ = _check_data(trick_to_dict(trick), folder)
         if problems:
             raise TrickFileError(problems)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        try:
-            mode = target.stat().st_mode & 0o7777
-        except FileNotFoundError:
-            umask = os.umask(0)
-            os.umask(umask)
-            mode = 0o666 & ~umask
-        os.chmod(tmp, mode)
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    atomic_write_text(target, text)
 
 
 # ---------------------------------------------------------------------------------------

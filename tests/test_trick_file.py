@@ -682,3 +682,12 @@ def test_check_dispatch_knows_tricks():
     d["phases"] = d["phases"][:1]
     d["keyframes"], d["goals"]["reach"] = [], []
     assert check_trick(d) == ([], "trick box_hop, robot tumbli, 1 phase, 12 knots total")
+
+
+def test_a_huge_integer_is_a_problem_not_a_traceback():
+    from kipup.core.trick_file import validate_trick_dict
+
+    data = {"format": "kipup-trick/1", "name": "x", "robot": "humanoid",
+            "phases": [{"name": "p", "contacts": [{"point": "toe"}], "duration": 10 ** 400}]}
+    problems = validate_trick_dict(data, None)
+    assert any(p.path == "phases[0].duration" and "too large" in p.message for p in problems)
