@@ -441,20 +441,23 @@ class TrickProblem:
                     add(f"impact_cone{i}", ca.vertcat(*fr) / r.total_mass, 0.0, INF)
                 else:
                     add(f"link_v{i}", (V[:, 0] - Vp[:, -1]) / 5.0, 0.0, 0.0)
-        # keyframes
+        # keyframes. Soft: the knots around the keyframe time are pulled towards the pose with
+        # the interpolation weights (a diagonal Hessian: no coupling between knots, so the KKT
+        # system keeps its banded structure). Hard: the interpolated pose equals the keyframe.
         for kl in self.keyframes:
             Q = blk(f"q{kl.phase}")
-            wq = ca.mtimes(Q, par(f"kf{kl.index}.interp"))
-            err = wq[kl.coords] - par(f"kf{kl.index}.value")
+            w = par(f"kf{kl.index}.interp")
+            target = par(f"kf{kl.index}.value")
             if kl.hard:
-                add(f"keyframe{kl.index}", err, 0.0, 0.0)
+                add(f"keyframe{kl.index}", ca.mtimes(Q, w)[kl.coords] - target, 0.0, 0.0)
             else:
-                J = J + costs[3] * par(f"kf{kl.index}.weight") * ca.sumsqr(err)
-        # reach goals
+                dev = Q[kl.coords, :] - ca.repmat(target, 1, Q.shape[1])
+                J = J + costs[3] * par(f"kf{kl.index}.weight") * ca.mtimes(ca.sum1(dev ** 2), w)
+        # reach goals: the point's position interpolated between knots reaches the target
         for rl in self.reaches:
             Q = blk(f"q{rl.phase}")
-            wq = ca.mtimes(Q, par(f"reach{rl.index}.interp"))
-            err = self._point_fn(rl.point)(wq) - par(f"reach{rl.index}.target")
+            pts = self._point_fn(rl.point).map(Q.shape[1])(Q)
+            err = ca.mtimes(pts, par(f"reach{rl.index}.interp")) - par(f"reach{rl.index}.target")
             if rl.hard:
                 add(f"reach{rl.index}", err, 0.0, 0.0)
             else:

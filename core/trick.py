@@ -160,7 +160,7 @@ class Costs:
 @dataclass
 class SolverSettings:
     max_iter: int = 500
-    tol: float = 1e-6
+    tol: float = 1e-8
     time_limit: float = 60.0
     print_level: int = 0
 

@@ -122,8 +122,9 @@ def test_stance_forces_are_unilateral_and_inside_the_friction_cone(backflip):
             c = motion.contact_points.index(point)
             mu = robot.point(point).friction
             f = motion.forces[span.first_knot:span.last_knot + 1, c, :]
-            assert (f[:, 1] >= -1e-6).all()
-            assert (np.abs(f[:, 0]) <= mu * f[:, 1] + 1e-6).all()
+            tol = 1e-3  # N: the solver's constraint tolerance (1e-6) times the weight scale m g
+            assert (f[:, 1] >= -tol).all()
+            assert (np.abs(f[:, 0]) <= mu * f[:, 1] + tol).all()
 
 
 def test_touchdown_impulse_is_compressive_and_stops_the_feet(backflip):
@@ -133,7 +134,7 @@ def test_touchdown_impulse_is_compressive_and_stops_the_feet(backflip):
     for imp in motion.impulses:
         ix, iz = imp.impulse
         mu = robot.point(imp.point).friction
-        assert iz >= -1e-6 and abs(ix) <= mu * iz + 1e-6
+        assert iz >= -1e-4 and abs(ix) <= mu * iz + 1e-4  # N s, constraint tolerance times m
         total_z += iz
     assert total_z > 1.0  # N s: the robot lands with real downward speed
     landing = next(p for p in motion.phases if p.name == "landing")
