@@ -4,6 +4,7 @@ from __future__ import annotations
 import casadi as ca
 import numpy as np
 
+from .limits import RANGE_TOL, SPEED_TOL
 from .motion import Impulse, Motion, PhaseSpan, Violation
 from .robot import Robot
 from .solver import SolveOutcome
@@ -11,7 +12,7 @@ from .transcription import TrickProblem
 from .trick import Trick
 
 TOL = 1e-5  # constraint violation (scaled units) reported as a violation
-SPEED_TOL = 0.02  # relative overshoot of a speed limit between knots that is reported
+
 
 
 def decode(problem: TrickProblem, trick: Trick, x: np.ndarray, status: str = "solved",
@@ -86,6 +87,15 @@ def constraint_report(problem: TrickProblem, trick: Trick, x: np.ndarray, motion
             if exc[k] > tol * max(1.0, abs(lim_hi) if np.isfinite(lim_hi) else 1.0):
                 limit = lim_hi if arr[k] > lim_hi else lim_lo
                 note(kind, name, motion.t[k], arr[k], limit, exc[k])
+    # joint ranges between knots (the NLP bounds knots and interval midpoints)
+    dense_t = np.linspace(motion.t[0], motion.t[-1], max(2, int((motion.t[-1] - motion.t[0]) * 1000) + 1))
+    dense_q = motion.sample(dense_t)["q"][:, 3:]
+    for j, name in enumerate(r.joint_names):
+        over = np.maximum(dense_q[:, j] - hi[j], lo[j] - dense_q[:, j])
+        k = int(np.argmax(over))
+        if over[k] > RANGE_TOL:
+            limit = hi[j] if dense_q[k, j] > hi[j] else lo[j]
+            note("joint_limit", name, dense_t[k], dense_q[k, j], limit, over[k])
     # speeds: the exact peak of the quadratic qd between knots (the NLP bounds knots and midpoints)
     for jm in motion.metrics(r, allow_other_name=True).joints:
         if jm.peak_speed > jm.speed_limit * (1 + SPEED_TOL):

@@ -410,6 +410,11 @@ class TrickProblem:
             vmid = V[3:, :-1] + h / 8 * (3 * A[3:, :-1] + A[3:, 1:])
             vlim = np.tile(np.asarray(r.velocity_limit), N)
             add(f"speed_mid{i}", vmid, -vlim, vlim)
+            # and joint position limits at interval midpoints (q is cubic between knots)
+            qmid = (Q[3:, :-1] + h / 2 * V[3:, :-1] + h ** 2 / 8 * A[3:, :-1]
+                    + h ** 2 / 48 * (A[3:, 1:] - A[3:, :-1]))
+            add(f"range_mid{i}", qmid, np.tile(np.asarray(r.joint_lower), N),
+                np.tile(np.asarray(r.joint_upper), N))
             add(f"defect_q{i}", dq, 0.0, 0.0)
             # torque rate and contact-force smoothness
             peak = ca.DM(np.asarray(r.peak_torque))
