@@ -31,6 +31,10 @@ from kipup.core.kinematics import center_of_mass, link_poses
 
 __all__ = [
     "RobotView",
+    "LinkMeshes",
+    "build_link_meshes",
+    "robot_size",
+    "side_color",
     "planar_link_poses",
     "planar_center_of_mass",
     "default_pose",
@@ -131,6 +135,114 @@ _POINT_COLOR = "#f1c40f"
 _COM_COLOR = "#8e44ad"
 
 
+def side_color(side: float) -> str:
+    """Colour of a capsule drawn at lateral offset ``side`` (m): left blue, right orange, centre grey."""
+    if side > 1e-9:
+        return _LEFT_COLOR
+    if side < -1e-9:
+        return _RIGHT_COLOR
+    return _CENTRE_COLOR
+
+
+def robot_size(robot: Robot) -> float:
+    """A length scale (m): height of the robot in its default pose, at least 0.2 m."""
+    q = default_pose(robot)
+    highest = 0.0
+    for link, (p, th) in zip(robot.links, planar_link_poses(robot, q)):
+        if link.capsule is None:
+            continue
+        for end in (link.capsule.start, link.capsule.end):
+            highest = max(highest, float((p + rot(th) @ np.asarray(end, dtype=float))[1]) + link.capsule.radius)
+    return max(highest, 0.2)
+
+
+class LinkMeshes:
+    """The meshes of one drawing of a robot: a ``pythreejs.Group`` per link (``groups``, by link
+    name) holding a lathed capsule per lateral offset in ``link.sides`` (``capsules``) and a small
+    sphere per named point at the same offsets (``points``, by point name)."""
+
+    def __init__(self, groups: dict, capsules: list, points: dict) -> None:
+        self.groups: dict[str, three.Group] = groups
+        self.capsules: list[three.Mesh] = capsules
+        self.points: dict[str, list[three.Mesh]] = points
+
+    def set_pose(self, robot: Robot, q: Sequence[float]) -> None:
+        """Move the groups to configuration ``q`` (one message per group; no geometry is rebuilt)."""
+        for link, (p, th) in zip(robot.links, planar_link_poses(robot, q)):
+            group = self.groups[link.name]
+            with group.hold_sync():
+                group.position = to_three(p)
+                group.quaternion = pitch_quaternion(th)
+
+
+def build_link_meshes(robot: Robot, *, show_points: bool = True, group_name=None, material=None,
+                      scale: float | None = None) -> LinkMeshes:
+    """Build the capsule and point meshes of ``robot`` in link frames (see :class:`LinkMeshes`).
+
+    group_name(link_name) -> str names each group (default ``link:NAME``); material(kind, side) ->
+    a pythreejs material, ``kind`` being "capsule", "contact_point" or "point" and ``side`` the
+    lateral offset (m); default: opaque standard materials in the view's colours. ``scale``: the
+    robot's length scale (m, default :func:`robot_size`), which sizes the point spheres.
+    """
+    scale = robot_size(robot) if scale is None else scale
+    group_name = group_name or (lambda name: f"link:{name}")
+    cache: dict[str, three.MeshStandardMaterial] = {}
+
+    def default_material(kind: str, side: float) -> three.MeshStandardMaterial:
+        color = {"capsule": side_color(side), "contact_point": _CONTACT_COLOR}.get(kind, _POINT_COLOR)
+        if color not in cache:
+            cache[color] = three.MeshStandardMaterial(color=color, roughness=0.6, metalness=0.1)
+        return cache[color]
+
+    material = material or default_material
+    groups: dict[str, three.Group] = {}
+    capsules: list[three.Mesh] = []
+    point_meshes: dict[str, list[three.Mesh]] = {}
+    point_radius = 0.012 * scale + 0.005
+    point_geometry = three.SphereBufferGeometry(radius=point_radius, widthSegments=12, heightSegments=8)
+    points_by_link: dict[str, list] = {}
+    for point in robot.points:
+        points_by_link.setdefault(point.link, []).append(point)
+
+    for link in robot.links:
+        group = three.Group(name=group_name(link.name))
+        children = []
+        cap = link.capsule
+        if cap is not None:
+            geometry = three.LatheBufferGeometry(points=_capsule_profile(cap.length, cap.radius), segments=16)
+            mid = ((cap.start[0] + cap.end[0]) / 2.0, (cap.start[1] + cap.end[1]) / 2.0)
+            dx, dz = cap.end[0] - cap.start[0], cap.end[1] - cap.start[1]
+            # the lathe axis is local three +y; turn it (about three +z) onto (dx, dz)
+            angle = math.atan2(-dx, dz) if cap.length > 0 else 0.0
+            for side in link.sides:
+                mesh = three.Mesh(
+                    geometry=geometry,
+                    material=material("capsule", side),
+                    position=to_three(mid, side),
+                    quaternion=_z_quaternion(angle),
+                    name=f"capsule:{link.name}:{side:+.3f}",
+                )
+                children.append(mesh)
+                capsules.append(mesh)
+        if show_points:
+            for point in points_by_link.get(link.name, []):
+                kind = "contact_point" if point.friction is not None else "point"
+                meshes = []
+                for side in link.sides:
+                    mesh = three.Mesh(
+                        geometry=point_geometry,
+                        material=material(kind, side),
+                        position=to_three(point.position, side),
+                        name=f"point:{point.name}:{side:+.3f}",
+                    )
+                    meshes.append(mesh)
+                children.extend(meshes)
+                point_meshes[point.name] = meshes
+        group.children = tuple(children)
+        groups[link.name] = group
+    return LinkMeshes(groups, capsules, point_meshes)
+
+
 class RobotView(ipywidgets.VBox):
     """3D view of ``robot`` at configuration ``q`` (default: :func:`default_pose`).
 
@@ -141,7 +253,8 @@ class RobotView(ipywidgets.VBox):
 
     Attributes: ``renderer``, ``scene``, ``camera``, ``controls`` (OrbitControls),
     ``link_groups`` (link name -> Group), ``capsule_meshes`` (list of Mesh),
-    ``point_meshes`` (point name -> list of Mesh), ``com_marker`` (Mesh).
+    ``point_meshes`` (point name -> list of Mesh), ``com_marker`` (Mesh), ``ground`` (Mesh),
+    ``grid`` (GridHelper). The meshes come from :func:`build_link_meshes`, which other views reuse.
     """
 
     def __init__(
@@ -160,62 +273,12 @@ class RobotView(ipywidgets.VBox):
         if q0.shape != (robot.nq,):
             raise ValueError(f"q must have length {robot.nq} for robot {robot.name!r}, got shape {q0.shape}")
 
-        scale = self._robot_size(robot)
-        self.link_groups: dict[str, three.Group] = {}
-        self.capsule_meshes: list[three.Mesh] = []
-        self.point_meshes: dict[str, list[three.Mesh]] = {}
-
-        materials: dict[str, three.MeshStandardMaterial] = {}
-
-        def material(color: str) -> three.MeshStandardMaterial:
-            if color not in materials:
-                materials[color] = three.MeshStandardMaterial(color=color, roughness=0.6, metalness=0.1)
-            return materials[color]
-
-        point_radius = 0.012 * scale + 0.005
-        point_geometry = three.SphereBufferGeometry(radius=point_radius, widthSegments=12, heightSegments=8)
-        points_by_link: dict[str, list] = {}
-        for point in robot.points:
-            points_by_link.setdefault(point.link, []).append(point)
-
-        for link in robot.links:
-            group = three.Group(name=f"link:{link.name}")
-            children = []
-            cap = link.capsule
-            if cap is not None:
-                geometry = three.LatheBufferGeometry(
-                    points=_capsule_profile(cap.length, cap.radius), segments=16
-                )
-                mid = ((cap.start[0] + cap.end[0]) / 2.0, (cap.start[1] + cap.end[1]) / 2.0)
-                dx, dz = cap.end[0] - cap.start[0], cap.end[1] - cap.start[1]
-                # the lathe axis is local three +y; turn it (about three +z) onto (dx, dz)
-                angle = math.atan2(-dx, dz) if cap.length > 0 else 0.0
-                for side in link.sides:
-                    mesh = three.Mesh(
-                        geometry=geometry,
-                        material=material(self._side_color(side)),
-                        position=to_three(mid, side),
-                        quaternion=_z_quaternion(angle),
-                        name=f"capsule:{link.name}:{side:+.3f}",
-                    )
-                    children.append(mesh)
-                    self.capsule_meshes.append(mesh)
-            if show_points:
-                for point in points_by_link.get(link.name, []):
-                    color = _CONTACT_COLOR if point.friction is not None else _POINT_COLOR
-                    meshes = []
-                    for side in link.sides:
-                        mesh = three.Mesh(
-                            geometry=point_geometry,
-                            material=material(color),
-                            position=to_three(point.position, side),
-                            name=f"point:{point.name}:{side:+.3f}",
-                        )
-                        meshes.append(mesh)
-                    children.extend(meshes)
-                    self.point_meshes[point.name] = meshes
-            group.children = tuple(children)
-            self.link_groups[link.name] = group
+        scale = robot_size(robot)
+        meshes = build_link_meshes(robot, show_points=show_points, scale=scale)
+        self.link_groups: dict[str, three.Group] = meshes.groups
+        self.capsule_meshes: list[three.Mesh] = meshes.capsules
+        self.point_meshes: dict[str, list[three.Mesh]] = meshes.points
+        self._meshes = meshes
 
         self.com_marker = three.Mesh(
             geometry=three.SphereBufferGeometry(radius=0.025 * scale + 0.01, widthSegments=16, heightSegments=12),
@@ -238,6 +301,7 @@ class RobotView(ipywidgets.VBox):
             colorCenterLine="#7f8c8d", colorGrid="#b8c0c8", name="grid",
         )
 
+        self.ground, self.grid = ground, grid
         self._q = q0.copy()
         self._apply_pose(q0)
 
@@ -285,30 +349,14 @@ class RobotView(ipywidgets.VBox):
         self._q = q
 
     def _apply_pose(self, q: np.ndarray) -> None:
-        for link, (p, th) in zip(self.robot.links, planar_link_poses(self.robot, q)):
-            group = self.link_groups[link.name]
-            with group.hold_sync():
-                group.position = to_three(p)
-                group.quaternion = pitch_quaternion(th)
+        self._meshes.set_pose(self.robot, q)
         self.com_marker.position = to_three(planar_center_of_mass(self.robot, q))
 
     # ------------------------------------------------------------------
     @staticmethod
     def _side_color(side: float) -> str:
-        if side > 1e-9:
-            return _LEFT_COLOR
-        if side < -1e-9:
-            return _RIGHT_COLOR
-        return _CENTRE_COLOR
+        return side_color(side)
 
     @staticmethod
     def _robot_size(robot: Robot) -> float:
-        """A length scale (m): height of the robot in its default pose, at least 0.2 m."""
-        q = default_pose(robot)
-        highest = 0.0
-        for link, (p, th) in zip(robot.links, planar_link_poses(robot, q)):
-            if link.capsule is None:
-                continue
-            for end in (link.capsule.start, link.capsule.end):
-                highest = max(highest, float((p + rot(th) @ np.asarray(end, dtype=float))[1]) + link.capsule.radius)
-        return max(highest, 0.2)
+        return robot_size(robot)

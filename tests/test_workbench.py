@@ -1,0 +1,440 @@
+"""Headless tests of kipup.widgets.Workbench: the widget models and the Python side of every
+interaction, driven through the same traits and methods the browser's pickers and bqplot marks
+use. No browser (tests/browser/ does that).
+
+Solves use the box_jump template with coarser time grids (16/12/10 knots instead of 32/24/20)
+so each takes well under a second here; one solved workbench is shared by the tests that need a
+motion, and each of them leaves it idle again. Run with OMP_NUM_THREADS=1 on shared machines.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from kipup.core.ik import point_positions
+from kipup.core.kinematics import link_poses
+from kipup.core.templates import load_template
+from kipup.core.trick import Costs
+from kipup.core.trick_file import TrickFileError, load_trick, trick_to_dict
+from kipup.widgets.robot_view import pitch_quaternion, to_three
+from kipup.widgets.workbench import MOTION_FILE, Workbench, _Throttle
+
+TIMEOUT = 180.0  # s: generous, the machine is shared
+
+
+def coarse_box_jump():
+    trick, robot = load_template("box_jump")
+    for phase, knots in zip(trick.phases, (16, 12, 10)):
+        phase.knots = knots
+    return trick, robot
+
+
+@pytest.fixture(scope="module")
+def wb():
+    trick, robot = coarse_box_jump()
+    bench = Workbench(trick, robot, solve_now=True)
+    assert bench.wait(TIMEOUT), "the first solve did not finish"
+    assert bench.motion is not None, bench.status_text
+    yield bench
+    bench.close()
+
+
+def idle(bench):
+    assert bench.wait(TIMEOUT), f"still busy: {bench.state()}"
+
+
+def all_widgets(root):
+    out, todo = [], [root]
+    while todo:
+        w = todo.pop()
+        out.append(w)
+        todo.extend(getattr(w, "children", ()) or ())
+    return out
+
+
+# ----- construction ------------------------------------------------------------------------
+def test_construct_from_template_without_solving():
+    bench = Workbench.from_template("box_jump", solve_now=False)
+    try:
+        assert bench.trick.name == "box_jump" and bench.robot.name == "tumbli"
+        assert bench.motion is None and bench.solves == [] and not bench.busy()
+        ws = all_widgets(bench.widget)
+        assert bench.renderer in ws and bench.timeline in ws
+        assert "kipup-view3d" in bench.renderer._dom_classes
+        assert "kipup-workbench" in bench.widget._dom_classes
+        assert set(bench.weight_sliders) == set(Costs.names())
+        # a handle for every joint and the base; point handles not sitting on a joint
+        assert {f"joint:{j}" for j in bench.robot.joint_names} | {"base"} <= set(bench.handles)
+        assert "point:hand" in bench.handles and "point:toe" in bench.handles
+        assert "point:knee" not in bench.handles  # the knee point is on the knee joint
+        # the pickers: mousedown on the handles, move/up on the drag plane, after the orbit controls
+        assert bench.renderer.controls[0] is bench.orbit
+        assert bench._pick_down.controlling is bench.handles_root and bench._pick_down.event == "mousedown"
+        assert bench._pick_move.controlling is bench.drag_plane and bench._pick_move.event == "mousemove"
+        assert bench._pick_up.event == "mouseup"
+        # boxes of the terrain are in the scene
+        assert [c.name for c in bench.terrain_root.children if c.name.startswith("box:")] == ["box:box"]
+        # the first keyframe is selected, its ghost and handles shown
+        assert bench.selected == 0 and bench.ghost_root.visible and bench.handles_root.visible
+        assert bench.state()["state"] == "idle"
+    finally:
+        bench.close()
+
+
+def test_ghost_handles_sit_on_the_ghost_and_project_into_the_view(wb):
+    wb.select_keyframe("tuck")
+    q = wb.keyframe_q()
+    kf = wb.trick.keyframes[wb.selected]
+    for name, value in kf.pose.items():
+        assert q[wb.robot.coord_index(name)] == pytest.approx(value)
+    hand = point_positions(wb.robot, q, ["hand"])["hand"]
+    assert np.allclose(wb.handle_position("point:hand"), hand)
+    # each carrier group carries its link's pose, so a handle's world position is the carrier's
+    for link, (x, z, th) in zip(wb.robot.links, link_poses(wb.robot, q)):
+        assert np.allclose(wb._carriers[link.name].position, to_three((x, z)))
+        assert np.allclose(wb._carriers[link.name].quaternion, pitch_quaternion(th))
+    screen = wb.handle_screen_positions()
+    assert set(screen) == set(wb.handles)
+    for u, v in screen.values():
+        assert 0 <= u <= wb.renderer.width and 0 <= v <= wb.renderer.height
+    # higher in the world is higher on the screen (smaller y); forward is to the right
+    assert screen["point:head"][1] < screen["joint:hip"][1]
+    assert screen["point:toe"][0] > screen["point:heel"][0]
+
+
+# ----- dragging ------------------------------------------------------------------------------
+def test_drag_through_the_pickers_poses_the_keyframe_and_resolves(wb):
+    idle(wb)
+    wb.select_keyframe("tuck")  # a flight keyframe: the base stays where it is
+    kf = wb.trick.keyframes[wb.selected]
+    before_pose = dict(kf.pose)
+    before_motion, before_count = wb.motion, wb.motion_count
+    toe = wb.handle_position("point:toe")
+    goal = toe + np.array([0.06, -0.05])
+
+    wb._pick_down.object = wb.handles["point:toe"].mesh          # mousedown on the toe handle
+    assert wb._drag is not None and wb._drag["handle"].name == "point:toe"
+    assert wb.orbit.enabled is False and wb.drag_plane.visible is True
+    assert wb._pick_down.object is None                            # reset, so the next pick is a change
+    wb._pick_move.object = wb.drag_plane
+    for s in (0.5, 1.0):                                           # mousemove on the plane
+        wb._pick_move.point = list(to_three(toe + (goal - toe) * s))
+        wb._drag_throttle.flush()
+    assert np.linalg.norm(wb.handle_position("point:toe") - goal) < 2e-3   # the ghost follows
+    assert wb.timings["drag_count"] >= 2 and wb.timings["drag_ms"] > 0
+    wb._pick_up.point = list(to_three(goal))                       # mouseup
+    assert wb._drag is None and wb.orbit.enabled is True and wb.drag_plane.visible is False
+
+    assert kf.pose != before_pose
+    assert set(kf.pose) == set(before_pose)            # the same coordinates: no rebuild needed
+    assert {k for k in kf.pose if kf.pose[k] != before_pose[k]} <= {"hip", "knee", "ankle"}
+    assert wb.busy(), "the edit did not start a re-solve"
+    idle(wb)
+    assert wb.motion_count == before_count + 1 and wb.motion is not before_motion
+    rec = wb.solves[-1]
+    assert rec.accepted and rec.warm and not rec.rebuilt and rec.status in ("solved", "acceptable")
+    assert rec.generation == wb.state()["generation"] == wb.state()["solved_generation"]
+    assert wb.timings["edit_to_motion_s"] == rec.edit_to_motion > 0
+    assert not np.array_equal(wb.motion.q, before_motion.q)
+
+
+def test_joint_handle_turns_the_joint_towards_the_drag_point(wb):
+    idle(wb)
+    wb.select_keyframe("tuck")
+    q0 = wb.keyframe_q()
+    knee = wb.handle_position("joint:knee")
+    wb._on_handle_down("joint:knee")
+    # straight below-forward of the knee: the shank (knee -> ankle) should point there
+    target = knee + 0.2 * np.array([math.sin(0.3), -math.cos(0.3)])
+    wb._on_drag(to_three(target))
+    q = wb._drag["q"]
+    ankle = wb.handle_position("joint:ankle")
+    shank = (ankle - knee) / np.linalg.norm(ankle - knee)
+    want = (target - knee) / np.linalg.norm(target - knee)
+    k = wb.robot.coord_index("knee")
+    lo, hi = wb.robot.joints[k - 3].lower, wb.robot.joints[k - 3].upper
+    if lo < q[k] < hi:
+        assert float(shank @ want) == pytest.approx(1.0, abs=1e-9)
+    assert np.array_equal(np.delete(q, k), np.delete(q0, k))  # only the knee turned
+    wb._drag = None  # abandon without committing
+    wb.orbit.enabled = True
+    wb.drag_plane.visible = False
+    wb.select_keyframe("tuck")
+
+
+def test_stance_keyframe_point_drag_keeps_the_feet(wb):
+    idle(wb)
+    wb.select_keyframe("crouch")  # in the push phase: toe and heel on the ground
+    q0 = wb.keyframe_q()
+    feet = point_positions(wb.robot, q0, ["toe", "heel"])
+    head = wb.handle_position("point:head")
+    wb._on_handle_down("point:head")
+    wb._on_drag(to_three(head + np.array([0.0, -0.05])))   # push the head down: a deeper crouch
+    q = wb._drag["q"]
+    got = point_positions(wb.robot, q, ["toe", "heel", "head"])
+    for name in ("toe", "heel"):
+        assert np.linalg.norm(got[name] - feet[name]) < 1e-3, name
+    assert got["head"][1] < head[1] - 0.03
+    wb._drag = None
+    wb.orbit.enabled = True
+    wb.drag_plane.visible = False
+    wb.select_keyframe("crouch")
+
+
+# ----- the timeline ----------------------------------------------------------------------------
+def test_moving_a_phase_boundary_changes_durations_and_resolves(wb):
+    idle(wb)
+    push, flight = wb.trick.phases[0], wb.trick.phases[1]
+    d_push, d_flight = push.duration, flight.duration
+    end_flight = d_push + d_flight
+    count = wb.motion_count
+    # as bqplot sends it when the boundary marker is dropped
+    wb._tl_bounds._handle_custom_msgs(None, {"event": "drag_end", "point": {"x": d_push + 0.04, "y": 0.5},
+                                             "index": 0})
+    assert push.duration == pytest.approx(d_push + 0.04)
+    assert flight.duration == pytest.approx(end_flight - push.duration)   # the next boundary stayed
+    assert np.allclose(wb._tl_bounds.x[:2], [push.duration, end_flight])
+    idle(wb)
+    assert wb.motion_count == count + 1
+    assert wb.motion.phases[0].duration == pytest.approx(push.duration)  # the push phase is fixed
+    # far beyond: the free flight phase stops at its minimum
+    wb.auto_solve = False
+    try:
+        wb.move_boundary(0, 10.0)
+        assert flight.duration == pytest.approx(flight.duration_min)
+        assert push.duration == pytest.approx(end_flight - flight.duration_min)
+        wb.move_boundary(0, d_push)  # back where it was
+        assert push.duration == pytest.approx(d_push) and flight.duration == pytest.approx(d_flight)
+    finally:
+        wb.auto_solve = True
+    idle(wb)
+
+
+def test_moving_a_keyframe_in_time_sets_its_phase_fraction(wb):
+    idle(wb)
+    wb.auto_solve = False
+    try:
+        i = [k.name for k in wb.trick.keyframes].index("tuck")
+        kf = wb.trick.keyframes[i]
+        starts = wb._nominal_starts()
+        wb._tl_keys._handle_custom_msgs(None, {"event": "drag_end", "index": i,
+                                               "point": {"x": starts[1] + 0.25 * (starts[2] - starts[1]), "y": 0.3}})
+        assert kf.phase == "flight" and kf.time == pytest.approx(0.25)
+        assert wb.selected == i
+        wb.move_keyframe(i, starts[2] + 1.0)  # past its phase: clamped to the phase's end
+        assert kf.time == 1.0
+        wb.move_keyframe(i, starts[1] + 0.5 * (starts[2] - starts[1]))
+        assert kf.time == pytest.approx(0.5)
+    finally:
+        wb.auto_solve = True
+    idle(wb)
+
+
+def test_add_and_remove_keyframe_at_the_playhead(wb):
+    idle(wb)
+    wb.auto_solve = False
+    try:
+        n = len(wb.trick.keyframes)
+        t = 0.5 * (wb.motion.phases[1].start + wb.motion.phases[1].end)
+        wb.set_playhead(t)
+        i = wb.add_keyframe_at_playhead()
+        kf = wb.trick.keyframes[i]
+        assert len(wb.trick.keyframes) == n + 1 and wb.selected == i
+        assert kf.phase == "flight" and kf.time == pytest.approx(0.5, abs=1e-9) and not kf.hard
+        q = wb.motion.sample(t)["q"]
+        assert kf.pose["knee"] == pytest.approx(q[wb.robot.coord_index("knee")])
+        assert not wb.solver.fits(wb.trick)  # a new keyframe changes the structure
+        wb.remove_selected_keyframe()
+        assert len(wb.trick.keyframes) == n and kf.name not in [k.name for k in wb.trick.keyframes]
+        assert wb.solver.fits(wb.trick)
+    finally:
+        wb.auto_solve = True
+    idle(wb)
+
+
+# ----- controls ------------------------------------------------------------------------------
+def test_weight_slider_sets_the_weight_and_warm_resolves(wb):
+    idle(wb)
+    count, before = wb.motion_count, wb.motion
+    old = wb.trick.costs.effort
+    wb.weight_sliders["effort"].value = old * 4
+    assert wb.trick.costs.effort == pytest.approx(old * 4)
+    idle(wb)
+    rec = wb.solves[-1]
+    assert wb.motion_count == count + 1 and rec.accepted and rec.warm and not rec.rebuilt
+    assert wb.motion.objective != before.objective
+    wb.set_weight("effort", old)
+    assert wb.trick.costs.effort == pytest.approx(old)
+    wb.set_weight("work", 0.0)  # already 0: the check box is off
+    assert wb.weight_on["work"].value is False and wb.trick.costs.work == 0.0
+    idle(wb)
+
+
+def test_a_newer_edit_supersedes_a_running_solve(wb):
+    idle(wb)
+    n = len(wb.solves)
+    wb.solve(warm=False)                     # a cold solve: dozens of iterations
+    assert wb.wait_for_progress(60), "the solve never reported an iteration"
+    assert wb.state()["state"] == "solving"
+    wb.weight_sliders["torque_rate"].value = wb.weight_sliders["torque_rate"].value * 2   # a newer edit
+    idle(wb)
+    first, last = wb.solves[n], wb.solves[-1]
+    assert first.status == "cancelled" and not first.accepted
+    assert last is not first and last.accepted and last.generation == wb.state()["generation"]
+    assert wb.trick.costs.torque_rate == pytest.approx(wb.weight_sliders["torque_rate"].value)
+
+
+def test_live_preview_draws_intermediate_iterates(wb):
+    idle(wb)
+    shown = wb.previews_shown
+    wb.solve(warm=False)
+    idle(wb)
+    assert wb.previews_shown > shown
+    assert wb._preview is None  # the finished motion is on screen again, not an iterate
+    assert np.allclose(wb.view.q, wb.motion.sample(wb.playhead)["q"])
+
+
+def test_an_infeasible_edit_keeps_the_last_good_motion_and_reports_in_words(wb):
+    idle(wb)
+    good, count = wb.motion, wb.motion_count
+    height = wb.trick.terrain.boxes[0].height
+    limit = wb.time_limit
+    wb.time_limit = 3.0
+    try:
+        wb.set_goal(box=("box", 2.0))   # a 2 m box for a 1 m robot
+        assert wb.trick.terrain.boxes[0].height == 2.0
+        idle(wb)
+        rec = wb.solves[-1]
+        assert not rec.accepted and rec.status not in ("solved", "acceptable", "cancelled")
+        assert wb.motion is good and wb.motion_count == count
+        assert wb.last_failure is rec
+        assert "limit violation" in wb.last_report or "No limit violations" in wb.last_report
+        assert "stays on screen" in wb.status_text and rec.status in wb.status_text
+        assert "the last good motion" in wb.message.value
+    finally:
+        wb.time_limit = limit
+        wb.set_goal(box=("box", height))
+    idle(wb)
+    assert wb.solves[-1].accepted and wb.motion_count == count + 1
+
+
+# ----- keeping work -------------------------------------------------------------------------
+def test_save_and_reload_round_trip(wb, tmp_path):
+    idle(wb)
+    path = wb.save(tmp_path / "my_jump.yaml")
+    assert path.is_file() and (tmp_path / MOTION_FILE).is_file()
+    trick, _ = load_trick(path)
+    assert trick_to_dict(trick) == trick_to_dict(wb.trick)
+    again = Workbench.from_file(path, auto_solve=False)
+    try:
+        assert trick_to_dict(again.trick) == trick_to_dict(wb.trick)
+        assert again.motion == wb.motion          # exact: the JSON round trip is exact
+        assert again.path == path and not again.busy()
+        assert again.clip is not None
+    finally:
+        again.close()
+    # a save that would not load back writes nothing and keeps the old files
+    before = path.read_text()
+    wb.trick.keyframes[0].pose["no_such_joint"] = 0.0
+    try:
+        with pytest.raises(TrickFileError):
+            wb.save(path)
+    finally:
+        del wb.trick.keyframes[0].pose["no_such_joint"]
+    assert path.read_text() == before
+
+
+def test_save_needs_a_path():
+    bench = Workbench.from_template("box_jump", solve_now=False)
+    try:
+        with pytest.raises(ValueError):
+            bench.save()
+    finally:
+        bench.close()
+
+
+# ----- playback -------------------------------------------------------------------------------
+def test_playback_clip_has_a_track_per_link_group_and_the_motion_duration(wb):
+    idle(wb)
+    m = wb.motion
+    summary = wb.clip_summary()
+    assert summary["duration"] == pytest.approx(m.duration)
+    n_keys = int(math.ceil(m.duration * 60.0)) + 1
+    node_names = set()
+    for link in wb.robot.links:
+        group = wb._player.groups[link.name]
+        node_names.add(group.name)
+        assert summary["tracks"][f"{group.name}.position"] == (n_keys, 3)
+        assert summary["tracks"][f"{group.name}.quaternion"] == (n_keys, 4)
+    # track names bind by node name: three.js needs names of letters, digits, _ and -
+    assert all(name.replace("_", "").replace("-", "").isalnum() for name in node_names)
+    # the clip's last key is the motion's final pose
+    track = {t.name: t for t in wb.clip.tracks}
+    q_end = m.sample(m.tend)["q"]
+    for link, (x, z, th) in zip(wb.robot.links, link_poses(wb.robot, q_end)):
+        name = wb._player.groups[link.name].name
+        assert np.allclose(np.asarray(track[f"{name}.position"].values).reshape(-1, 3)[-1], (x, z, 0.0), atol=1e-6)
+        assert np.allclose(np.asarray(track[f"{name}.quaternion"].values).reshape(-1, 4)[-1],
+                           pitch_quaternion(th), atol=1e-6)
+    assert float(np.asarray(track[f"{wb._player.groups[wb.robot.links[0].name].name}.position"].times)[-1]) == \
+        pytest.approx(m.duration, abs=1e-6)
+    # play / pause / stop switch between the browser-animated copy and the Python-posed robot
+    wb.play()
+    assert wb._mode == "playing" and wb.player_root.visible and not wb.static_root.visible
+    # the browser's slider sends back the playhead values Python shows on it (snapped to its step,
+    # sometimes late): that is no scrub and must not stop playback
+    wb._set_scrubber(0.1234567)
+    wb._set_scrubber(0.2)
+    wb.scrubber.value = 0.123 + 1e-12      # a late, snapped echo of the first value
+    assert wb._mode == "playing"
+    wb.pause()
+    assert wb._mode == "paused"
+    wb.scrubber.value = 0.9 * m.tend       # the user scrubs: back to the Python-posed robot
+    assert wb._mode == "static" and not wb.player_root.visible
+    wb.play()
+    wb.pause()
+    wb.speed.value = 0.25
+    assert wb.action.timeScale == pytest.approx(0.25)
+    wb.stop()
+    assert wb._mode == "static" and not wb.player_root.visible and wb.static_root.visible
+    wb.speed.value = 1.0
+
+
+def test_playhead_moves_robot_contacts_and_cursors(wb):
+    idle(wb)
+    m = wb.motion
+    t = 0.5 * (m.phases[0].start + m.phases[0].end)   # mid push: feet on the ground
+    wb.set_playhead(t)
+    assert np.allclose(wb.view.q, m.sample(t)["q"])
+    assert wb.contact_markers["toe"].material is wb._lit and wb.force_arrows["toe"].visible
+    assert all(c.x[0] == pytest.approx(t) for c in wb._cursors)
+    t = 0.5 * (m.phases[1].start + m.phases[1].end)   # mid flight: nothing in contact
+    wb.set_playhead(t)
+    assert wb.contact_markers["toe"].material is wb._unlit and not wb.force_arrows["toe"].visible
+
+
+def test_throttle_runs_the_last_call():
+    calls = []
+    th = _Throttle(10.0)
+    assert th(calls.append, 1) is True
+    assert th(calls.append, 2) is False and th(calls.append, 3) is False
+    assert calls == [1]
+    th.flush()
+    assert calls == [1, 3]
+    th.cancel()
+
+
+def test_a_structure_edit_rebuilds_the_solver_in_the_background(wb):
+    """Kept last: it leaves the shared workbench on a new solver."""
+    idle(wb)
+    old_solver, count = wb.solver, wb.motion_count
+    flight = wb.trick.phase("flight")
+    wb.set_phase("flight", knots=flight.knots + 2)       # through the Phase tab's widgets
+    assert flight.knots == 14 and not old_solver.fits(wb.trick)
+    idle(wb)
+    rec = wb.solves[-1]
+    assert rec.rebuilt and rec.accepted and wb.solver is not old_solver and wb.solver.fits(wb.trick)
+    assert wb.motion_count == count + 1
+    assert wb.motion.phase("flight").knots == flight.knots + 1   # intervals + 1 knots
