@@ -119,8 +119,14 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("files", nargs="+", metavar="FILE", help="YAML file to check")
     check.set_defaults(func=_cmd_check)
     from .cli_solve import add_parsers
+    from .cli_render import add_parsers as add_render_parsers
+    from .cli_io import add_parsers as add_io_parsers
+    from .cli_simulate import add_parsers as add_simulate_parsers
 
     add_parsers(sub, fmt, HARDWARE_CAUTION)
+    add_render_parsers(sub, fmt, HARDWARE_CAUTION)
+    add_io_parsers(sub, fmt, HARDWARE_CAUTION)
+    add_simulate_parsers(sub, fmt, HARDWARE_CAUTION)
     sub.add_parser("bench", add_help=False, help="run the benchmarks (kipup bench --help for options)")
     return parser
 
