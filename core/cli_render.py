@@ -33,7 +33,7 @@ def cmd_render(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     from . import render
-    from .trick_file import TrickFileError, load_trick
+    from .cli_solve import load_trick_or_report
 
     out = Path(args.output)
     suffix = out.suffix.lower()
@@ -47,15 +47,10 @@ def cmd_render(args: argparse.Namespace) -> int:
         known = ", ".join(render.VIDEO_SUFFIXES + render.STILL_SUFFIXES)
         print(f"kipup render: {out}: unknown output type {out.suffix or '(no suffix)'!r}; use one of {known}")
         return 2
-    try:
-        trick, robot = load_trick(args.trick)
-    except TrickFileError as exc:
-        for p in exc.problems:
-            print(f"{args.trick}: {p.path}: {p.message}")
+    loaded = load_trick_or_report(args.trick)
+    if loaded is None:
         return 2
-    except OSError as exc:
-        print(f"{args.trick}: cannot read: {exc}")
-        return 2
+    trick, robot = loaded
     motions = []
     for label, path in (("motion", args.motion), ("ghost", args.ghost)):
         if path is None:

@@ -21,17 +21,12 @@ def _floats(text: str) -> list[float]:
 
 def _load(args: argparse.Namespace):
     from .motion import Motion
-    from .trick_file import TrickFileError, load_trick
+    from .cli_solve import load_trick_or_report
 
-    try:
-        trick, robot = load_trick(args.trick)
-    except TrickFileError as exc:
-        for p in exc.problems:
-            print(f"{args.trick}: {p.path}: {p.message}")
+    loaded = load_trick_or_report(args.trick)
+    if loaded is None:
         return None
-    except OSError as exc:
-        print(f"{args.trick}: cannot read: {exc}")
-        return None
+    trick, robot = loaded
     try:
         motion = Motion.from_json(args.motion)
     except (OSError, ValueError) as exc:

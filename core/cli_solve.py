@@ -30,21 +30,29 @@ def write_outputs(motion: Motion, outdir: str | Path) -> list[Path]:
     return staged
 
 
+def load_trick_or_report(path: str):
+    """(trick, robot) from a trick file, or None after printing every problem (``FILE: path: message``)."""
+    from .trick_file import TrickFileError, load_trick
+
+    try:
+        return load_trick(path)
+    except TrickFileError as exc:
+        for p in exc.problems:
+            print(f"{path}: {p.path}: {p.message}")
+    except OSError as exc:
+        print(f"{path}: cannot read: {exc}")
+    return None
+
+
 def cmd_solve(args: argparse.Namespace) -> int:
     from tqdm import tqdm
 
     from .optimize import optimize
-    from .trick_file import TrickFileError, load_trick
 
-    try:
-        trick, robot = load_trick(args.trick)
-    except TrickFileError as exc:
-        for p in exc.problems:
-            print(f"{args.trick}: {p.path}: {p.message}")
+    loaded = load_trick_or_report(args.trick)
+    if loaded is None:
         return 2
-    except OSError as exc:
-        print(f"{args.trick}: cannot read: {exc}")
-        return 2
+    trick, robot = loaded
     if args.max_iter:
         trick.solver.max_iter = args.max_iter
     bar = tqdm(total=trick.solver.max_iter, desc=f"solving {trick.name}", unit="it",
