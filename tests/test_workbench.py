@@ -438,3 +438,236 @@ def test_a_structure_edit_rebuilds_the_solver_in_the_background(wb):
     assert rec.rebuilt and rec.accepted and wb.solver is not old_solver and wb.solver.fits(wb.trick)
     assert wb.motion_count == count + 1
     assert wb.motion.phase("flight").knots == flight.knots + 1   # intervals + 1 knots
+
+
+# ----- recording -------------------------------------------------------------------------------
+NEAR_LIMB = np.array([0xEE, 0x8A, 0x3C])  # kipup.core.render.LIMB_COLOURS["near"] fill: the right limbs
+
+
+def robot_pixels(frame: np.ndarray, tol: int = 50) -> int:
+    """How many pixels of an RGB frame have the near limbs' fill colour (the robot is drawn)."""
+    return int((np.abs(frame[..., :3].astype(int) - NEAR_LIMB).max(axis=-1) <= tol).sum())
+
+
+def test_record_writes_mp4_gif_and_png_and_shows_them_inline(wb, tmp_path):
+    import imageio.v2 as imageio_v2
+    from PIL import Image
+
+    from kipup.core.render import frame_times
+
+    idle(wb)
+    motion = wb.motion
+    # MP4 at half speed into a folder
+    task = wb.record(tmp_path, fmt="mp4", slow=0.5, size=(480, 270))
+    assert task.wait(TIMEOUT) and task.ok, task
+    path = task.result
+    assert path == tmp_path / f"{wb.trick.name}_slow0.5.mp4" and path.is_file()
+    n_expected = len(frame_times(motion, 30, 0.5))   # slow 0.5: twice the frames of real time
+    reader = imageio_v2.get_reader(str(path), format="FFMPEG")
+    try:
+        meta = reader.get_meta_data()
+        n, mid = 0, None
+        for frame in reader:                          # keep one frame only: the machine is shared
+            if n == n_expected // 2:
+                mid = np.array(frame)
+            n += 1
+    finally:
+        reader.close()
+    assert meta["codec"] == "h264" and meta["size"] == (480, 270)
+    assert n == n_expected and mid is not None
+    assert mid.std() > 10 and robot_pixels(mid) > 100, "the recorded frame looks blank"
+    assert wb.record_view.format == "mp4" and wb.record_view.value == path.read_bytes()
+    assert wb.record_view in all_widgets(wb.widget)
+    caption = wb.record_out.children[1].value
+    assert str(path) in caption and f"motion #{wb.motion_count}" in caption
+    assert "recorded" in wb.record_status.value
+
+    # GIF and strobe PNG next to the trick file (path=None)
+    wb.path = tmp_path / "trick" / "jump.yaml"
+    wb.path.parent.mkdir()
+    task = wb.record(fmt="gif", slow=1.0, size=(320, 180))
+    assert task.wait(TIMEOUT) and task.ok, task
+    gif = task.result
+    assert gif == wb.path.parent / f"{wb.trick.name}.gif"
+    with Image.open(gif) as im:
+        assert im.n_frames == len(frame_times(motion, 15, 1.0))
+        im.seek(im.n_frames // 2)
+        frame = np.asarray(im.convert("RGB"))
+    assert frame.std() > 10 and robot_pixels(frame) > 30
+    assert wb.record_view.format == "gif" and wb.record_view.value == gif.read_bytes()
+
+    task = wb.record(fmt="png")
+    assert task.wait(TIMEOUT) and task.ok, task
+    png = task.result
+    assert png.name == f"{wb.trick.name}_strobe.png"
+    with Image.open(png) as im:
+        still = np.asarray(im.convert("RGB"))
+    assert still.std() > 10 and robot_pixels(still) > 100
+    assert wb.record_view.format == "png" and wb.record_view.value == png.read_bytes()
+    assert sorted(p.name for p in wb.path.parent.iterdir()) == sorted([gif.name, png.name])  # no temp files
+    wb.path = None
+
+
+def test_record_refuses_bad_input_in_words_and_writes_nothing(wb, tmp_path):
+    idle(wb)
+    with pytest.raises(ValueError, match="fmt"):
+        wb.record(tmp_path, fmt="avi")
+    with pytest.raises(ValueError, match="slow"):
+        wb.record(tmp_path, slow=0.0)
+    with pytest.raises(ValueError, match="path.*'x.gif' is a .gif file but fmt is 'mp4'"):
+        wb.record(tmp_path / "x.gif", fmt="mp4")
+    with pytest.raises(ValueError, match="path.*no trick file"):
+        wb.record()                                   # wb.path is None
+    missing = tmp_path / "no" / "such"
+    with pytest.raises(FileNotFoundError, match="does not exist"):
+        wb.record(missing / "a.mp4")
+    # the same from the Record button: the message names the folder, nothing is written
+    wb.record_folder.value = str(missing) + "/"
+    wb._record_clicked()
+    assert "Not recorded" in wb.record_status.value and str(missing) in wb.record_status.value
+    wb.record_folder.value = ""
+    assert list(tmp_path.iterdir()) == [] and not wb.record_button.disabled
+
+    bench = Workbench.from_template("box_jump", solve_now=False, auto_solve=False)
+    try:
+        with pytest.raises(ValueError, match="no motion to record"):
+            bench.record(tmp_path)
+        bench._record_clicked()
+        assert "no motion to record" in bench.record_status.value
+    finally:
+        bench.close()
+
+
+def test_a_recording_that_fails_midway_leaves_no_file(wb, tmp_path, monkeypatch):
+    from kipup.core import render
+
+    idle(wb)
+    calls = {"n": 0}
+    real = render._FrameRenderer.frame
+
+    def failing(self, k):
+        calls["n"] += 1
+        if calls["n"] > 3:
+            raise RuntimeError("disk on fire")
+        return real(self, k)
+
+    monkeypatch.setattr(render._FrameRenderer, "frame", failing)
+    before = wb.record_view
+    for fmt in ("mp4", "gif"):
+        calls["n"] = 0
+        task = wb.record(tmp_path, fmt=fmt, size=(320, 180))
+        assert task.wait(TIMEOUT) and task.state == "failed" and "disk on fire" in task.error
+        assert "Recording failed" in wb.record_status.value and "nothing was written" in wb.record_status.value
+        assert list(tmp_path.iterdir()) == []            # neither the file nor a temporary one
+    assert wb.record_view is before                      # the last good recording stays on show
+
+
+# ----- simulation ghost and robustness -----------------------------------------------------------
+def test_simulate_draws_a_ghost_in_the_playback_clip_and_says_the_verdict(wb, tmp_path):
+    from kipup.core.motion import Motion
+    from kipup.core.tracking import simulate
+    from kipup.widgets.wb_verify import sim_q_at, takeoff_time
+
+    idle(wb)
+    motion = wb.motion
+    task = wb.simulate(start="takeoff")
+    assert task.wait(TIMEOUT) and task.ok, task
+    sim = wb.sim
+    assert sim is task.result and wb.current_sim() is sim
+    # the workbench ran exactly what core's simulate gives for these settings
+    again = simulate(motion, wb.robot, wb.trick.terrain, start_time=takeoff_time(motion), duration_after=1.0,
+                     trick_name=wb.trick.name)
+    assert again == sim
+
+    # ghost meshes: a static copy (posed at the playhead) and an animated copy in the same clip
+    assert wb.sim_root.visible and wb.sim_player_root.visible
+    assert wb.sim_root in wb.static_root.children and wb.sim_player_root in wb.player_root.children
+    tracks = {tr.name: tr for tr in wb.clip.tracks}
+    times = None
+    for link in wb.robot.links:
+        g = wb._sim_player.groups[link.name]
+        assert g.name.startswith("ks_") and g in wb.sim_player_root.children
+        assert f"{g.name}.position" in tracks and f"{g.name}.quaternion" in tracks
+        times = np.asarray(tracks[f"{g.name}.position"].times)
+    assert wb.clip.duration == pytest.approx(max(motion.duration, sim.t[-1] - motion.t0))
+    # the track values are the simulated poses (not the plan's)
+    k = len(times) * 3 // 4
+    q_sim = sim_q_at(sim, motion, motion.t0 + np.array([times[k]]))[0]
+    for i, (link, (x, z, th)) in enumerate(zip(wb.robot.links, link_poses(wb.robot, q_sim))):
+        pos = np.asarray(tracks[f"{wb._sim_player.groups[link.name].name}.position"].values).reshape(-1, 3)
+        assert pos[k] == pytest.approx([x, z, 0.0], abs=1e-4)
+    torso = wb.robot.links[0].name
+    planned = np.asarray(tracks[f"kp_{torso}.position"].values).reshape(-1, 3)
+    simulated = np.asarray(tracks[f"ks_{torso}.position"].values).reshape(-1, 3)
+    assert np.abs(planned[-1] - simulated[len(planned) - 1]).max() > 0.01  # the two robots part
+    # paused: the static ghost sits at the simulated pose of the playhead
+    t = float(sim.t[len(sim.t) // 2])
+    wb.set_playhead(t)
+    q = sim_q_at(sim, motion, np.array([t]))[0]
+    x, z, th = link_poses(wb.robot, q)[0]
+    assert np.allclose(wb._sim_static.groups[torso].position, (x, z, 0.0), atol=1e-6)
+    assert np.allclose(wb._sim_static.groups[torso].quaternion, pitch_quaternion(th), atol=1e-6)
+
+    # the verdict in words, from the SimResult
+    v, text = sim.verdict, wb.verdict.value
+    assert ("<b>yes</b>" if v.success else "<b>no</b>") in text
+    if math.isfinite(v.pitch_error_at_touchdown):
+        assert f"{v.pitch_error_at_touchdown:+.3f} rad" in text
+    else:
+        assert "n/a (no touchdown)" in text
+    assert "standing still 1 s after the planned end" in text
+    if v.diverged:
+        assert f"fell or diverged at t = {v.diverged_time:.3f} s" in text
+    else:
+        assert f"{'yes' if v.stands_still else 'no'} (COM speed {v.com_speed_end:.3f} m/s" in text
+    for e in sim.errors:
+        if e.name in sim.joint_names:
+            assert f"<td>{e.name}</td><td>{e.max:.3f}</td><td>{e.rms:.3f}</td>" in text
+
+    # hiding the ghost takes its tracks out of the clip; showing it brings them back
+    wb.sim_ghost_box.value = False
+    assert not wb.sim_root.visible and not any(tr.name.startswith("ks_") for tr in wb.clip.tracks)
+    assert wb.clip.duration == pytest.approx(motion.duration)
+    wb.sim_ghost_box.value = True
+    assert any(tr.name.startswith("ks_") for tr in wb.clip.tracks)
+
+    # a new motion on screen: the old simulation's ghost goes and its verdict says so
+    motion.to_json(tmp_path / "m.json")
+    with wb._lock:
+        wb._show_new_motion(Motion.from_json(tmp_path / "m.json"))
+    assert wb.current_sim() is None and not wb.sim_root.visible
+    assert not any(tr.name.startswith("ks_") for tr in wb.clip.tracks)
+    assert "no longer on screen" in wb.verdict.value
+    wb.clear_simulation()
+    assert wb.sim is None and "not simulated yet" in wb.verdict.value
+
+
+def test_simulate_and_robustness_need_a_motion():
+    bench = Workbench.from_template("box_jump", solve_now=False, auto_solve=False)
+    try:
+        with pytest.raises(ValueError, match="no motion to simulate"):
+            bench.simulate()
+        with pytest.raises(ValueError, match="no motion to sweep"):
+            bench.robustness()
+        bench._verify_clicked(bench.simulate)
+        assert "no motion to simulate" in bench.message.value
+    finally:
+        bench.close()
+
+
+def test_robustness_shows_the_sweep_summary(wb):
+    idle(wb)
+    with pytest.raises(ValueError, match="start"):
+        wb.robustness(n=4, start="middle")
+    task = wb.robustness(n=4, start="takeoff")
+    assert task.wait(TIMEOUT) and task.ok, task
+    sweep = wb.sweep
+    assert sweep is task.result and sweep.n == 4 and not any(o.error for o in sweep.outcomes)
+    rate = sum(o.success for o in sweep.outcomes) / 4          # counted here, not taken from the result
+    text = wb.sweep_summary.value
+    assert f"<tr><td>samples</td><td>4</td></tr>" in text
+    assert f"<tr><td>success rate</td><td>{100 * rate:.0f} %</td></tr>" in text
+    pitch = np.abs([o.pitch_error for o in sweep.outcomes if math.isfinite(o.pitch_error)])
+    if pitch.size:
+        assert f"median {np.median(pitch):.3f}" in text
+    assert f"success {100 * rate:.0f} % of 4 samples" in wb.status_text

@@ -203,3 +203,68 @@ def _link_direction(robot: Robot, link: str) -> np.ndarray:
 
 def _html(text: str) -> str:
     return (str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;"))
+
+
+class BackgroundTask:
+    """A job the workbench runs in a thread of its own (a recording, a simulation, a sweep).
+
+    ``kind``: 'record', 'simulate' or 'sweep'. ``state``: 'running', 'done' or 'failed'.
+    ``result``: what the job returned (a Path, a SimResult, a SweepResult); ``error``: what went
+    wrong, in words ('' when it did not fail). :meth:`wait` blocks until it has ended.
+    """
+
+    def __init__(self, kind: str, describe: str) -> None:
+        self.kind = kind
+        self.describe = describe        # e.g. "recording box_jump.mp4"
+        self.state = "running"
+        self.result: Any = None
+        self.error = ""
+        self.started = time.perf_counter()
+        self.elapsed: float | None = None  # s, once ended
+        self._done = threading.Event()
+
+    @property
+    def done(self) -> bool:
+        return self._done.is_set()
+
+    @property
+    def ok(self) -> bool:
+        return self.state == "done"
+
+    def wait(self, timeout: float | None = 300.0) -> bool:
+        """Block until the job has ended; False if ``timeout`` (s) passed first."""
+        return self._done.wait(timeout)
+
+    def _finish(self, result: Any = None, error: str = "") -> None:
+        self.result, self.error = result, error
+        self.state = "failed" if error else "done"
+        self.elapsed = time.perf_counter() - self.started
+
+    def __repr__(self) -> str:
+        return f"<BackgroundTask {self.kind} {self.state}: {self.describe}{' - ' + self.error if self.error else ''}>"
+
+
+def run_in_thread(task: BackgroundTask, work: Callable[[], Any], on_done: Callable[[BackgroundTask], None],
+                  name: str) -> threading.Thread:
+    """Run ``work()`` in a daemon thread; record its result or error (in words) on ``task``, call
+    ``on_done(task)`` (in that thread; an error there is recorded too, never raised), then wake
+    :meth:`BackgroundTask.wait`."""
+
+    def body() -> None:
+        try:
+            result = work()
+        except Exception as exc:  # noqa: BLE001 - shown to the user in words
+            task._finish(error=f"{type(exc).__name__}: {exc}")
+        else:
+            task._finish(result)
+        try:
+            on_done(task)   # the widgets show the outcome before anyone waiting is woken
+        except Exception as exc:  # noqa: BLE001 - never kill the thread silently
+            task.error = task.error or f"showing the result failed: {type(exc).__name__}: {exc}"
+            task.state = "failed"
+        finally:
+            task._done.set()
+
+    t = threading.Thread(target=body, name=name, daemon=True)
+    t.start()
+    return t

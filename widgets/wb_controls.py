@@ -15,6 +15,9 @@ from .robot_view import rot
 from .wb_common import MIN_PHASE_DURATION
 
 
+TAB_TITLES = ["Solve", "Keyframe", "Goals", "Weights", "Phase", "Record", "Verify"]
+
+
 class ControlsMixin:
     """The control widgets and the layout."""
 
@@ -130,8 +133,10 @@ class ControlsMixin:
                             self.ph_knots, self.ph_contacts, self.ph_surface])
         self._show_phase()
 
-        self.tabs = W.Tab(children=[solve_tab, key_tab, goals_tab, weights_tab, phase_tab])
-        for i, title in enumerate(["Solve", "Keyframe", "Goals", "Weights", "Phase"]):
+        record_tab = self._build_record_tab()    # wb_record
+        verify_tab = self._build_verify_tab()    # wb_verify
+        self.tabs = W.Tab(children=[solve_tab, key_tab, goals_tab, weights_tab, phase_tab, record_tab, verify_tab])
+        for i, title in enumerate(TAB_TITLES):
             self.tabs.set_title(i, title)
 
         # playback

@@ -26,6 +26,7 @@ class PlaybackMixin:
         t0 = time.perf_counter()
         self.motion = motion
         self.motion_count += 1
+        self._motion_replaced(self.motion_count)   # an older simulation's ghost goes (wb_verify)
         self._refresh_time_range()
         self._update_com_path(motion)
         t1 = time.perf_counter()
@@ -43,7 +44,7 @@ class PlaybackMixin:
         self._publish_state()
 
     def _refresh_time_range(self) -> None:
-        T = self.motion.tend if self.motion is not None else self.trick.nominal_duration
+        T = self._view_end()   # the motion's end, or a shown simulation's if it runs on
         self._programmatic += 1
         try:
             self.scrubber.max = max(T, 1e-3)
@@ -65,7 +66,9 @@ class PlaybackMixin:
 
     def _build_clip(self, motion: Motion) -> None:
         """The playback clip: per link group a position and a quaternion track at CLIP_RATE, plus the
-        COM, lit contact markers and force arrows (scale tracks)."""
+        COM, lit contact markers and force arrows (scale tracks); with a simulation shown, the sim
+        ghost's tracks too, and the clip lasts until the simulation ends (the planned robot holds
+        its last pose meanwhile)."""
         robot = self.robot
         n = max(2, int(math.ceil(motion.duration * CLIP_RATE)) + 1)
         times = np.linspace(0.0, motion.duration, n)
@@ -121,7 +124,13 @@ class PlaybackMixin:
                 three.QuaternionKeyframeTrack(name=f"{aname}.quaternion", times=times.astype(np.float32),
                                               values=arrow_quat.reshape(-1)),
             ]
-        clip = three.AnimationClip(name=f"{self.trick.name}-{self.motion_count}", duration=float(motion.duration),
+        duration = float(motion.duration)
+        sim_end = self._view_end() - motion.t0 if self.motion is motion else duration
+        if sim_end > duration:
+            duration = sim_end
+        ns = max(2, int(math.ceil(duration * CLIP_RATE)) + 1)
+        tracks += self._sim_tracks(motion, np.linspace(0.0, duration, ns)) if self.motion is motion else []
+        clip = three.AnimationClip(name=f"{self.trick.name}-{self.motion_count}", duration=duration,
                                    tracks=tracks)
         action = three.AnimationAction(self._mixer, clip, self.player_root,
                                        loop="LoopRepeat" if self.loop_box.value else "LoopOnce",
@@ -197,15 +206,18 @@ class PlaybackMixin:
                 self.force_arrows[name].visible = False
             self._move_cursors(t)
             return
-        t = float(np.clip(t, m.t0, m.tend))
+        t = float(np.clip(t, m.t0, self._view_end() if m is self.motion else m.tend))
         self.playhead = t
-        q = m.sample(t)["q"]
+        tp = min(t, m.tend)   # past the planned end (a simulation runs on) the plan holds its last pose
+        q = m.sample(tp)["q"]
         if not np.all(np.isfinite(q)):
             return
         self.view.set_pose(q)
+        if m is self.motion:
+            self._pose_sim_ghost(t)
         pts = point_positions(self.robot, q, self._contact_capable)
-        phase = m.phase_at(t)
-        f = m.sample_forces(t) if m.contact_points else None
+        phase = m.phase_at(tp)
+        f = m.sample_forces(tp) if m.contact_points else None
         for name in self._contact_capable:
             marker, arrow = self.contact_markers[name], self.force_arrows[name]
             p = pts[name]
@@ -303,9 +315,10 @@ class PlaybackMixin:
             return 0.0
         elapsed = (time.perf_counter() - self._play_started) * float(self.speed.value)
         t = self._play_offset + elapsed
-        if self.loop_box.value and m.duration > 0:
-            t = t % m.duration
-        return m.t0 + float(np.clip(t, 0.0, m.duration))
+        duration = self._view_end() - m.t0   # the clip's duration
+        if self.loop_box.value and duration > 0:
+            t = t % duration
+        return m.t0 + float(np.clip(t, 0.0, duration))
 
     def _start_ticker(self) -> None:
         self._ticker_stop.set()

@@ -64,9 +64,10 @@ class SceneMixin:
             self.force_arrows[name] = three.Group(
                 name=f"force:{name}", visible=False,
                 children=[three.Mesh(geometry=arrow_geo, material=arrow_mat, position=(0.0, 0.5, 0.0))])
+        self._build_sim_meshes()   # the simulated ghost: a static and an animated copy (wb_verify)
         self.static_root = three.Group(name="static", children=(
             *self.view.link_groups.values(), self.view.com_marker,
-            *self.contact_markers.values(), *self.force_arrows.values()))
+            *self.contact_markers.values(), *self.force_arrows.values(), self.sim_root))
 
         # COM path (fixed number of samples, updated in place)
         self._com_path_attr = three.BufferAttribute(array=np.zeros((COM_PATH_SAMPLES, 3), dtype=np.float32),
@@ -91,7 +92,7 @@ class SceneMixin:
                 children=[three.Mesh(geometry=arrow_geo, material=arrow_mat, position=(0.0, 0.5, 0.0))])
         self.player_root = three.Group(name="kp_player", visible=False, children=(
             *self._player.groups.values(), self._player_com, *self._player_lit.values(),
-            *self._player_arrows.values()))
+            *self._player_arrows.values(), self.sim_player_root))
         self._mixer = three.AnimationMixer(self.player_root)
 
         # ghost of the keyframe being edited, and its handles

@@ -83,12 +83,14 @@ from .wb_solving import SolvingMixin
 from .wb_playback import PlaybackMixin
 from .wb_editing import EditingMixin
 from .wb_drag import DragMixin
+from .wb_record import RecordMixin
+from .wb_verify import VerifyMixin
 
 __all__ = ["Workbench", "MOTION_FILE", "SolveRecord"]
 
 
 class Workbench(SceneMixin, TimelineMixin, PlotsMixin, ControlsMixin, SolvingMixin, PlaybackMixin,
-                EditingMixin, DragMixin):
+                EditingMixin, DragMixin, RecordMixin, VerifyMixin):
     """An interactive editor for one trick on one robot (see the module docstring).
 
     trick, robot: what to edit (the trick is edited in place). path: the trick file that
