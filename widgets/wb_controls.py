@@ -16,6 +16,15 @@ from .wb_common import MIN_PHASE_DURATION
 
 
 TAB_TITLES = ["Solve", "Keyframe", "Goals", "Weights", "Phase", "Record", "Verify"]
+#: scoped to the workbench: tab titles wrap onto a second row instead of being cut; text in the
+#: message and verdict areas wraps between words
+WORKBENCH_CSS = """<style>
+.kipup-workbench .lm-TabBar-content { flex-wrap: wrap; }
+.kipup-workbench .lm-TabBar { min-height: fit-content; height: auto; overflow: visible; }
+.kipup-workbench .lm-TabBar-tab { flex: 0 0 auto; min-width: 0; max-width: none; padding: 0 8px; }
+.kipup-workbench .kipup-wrap, .kipup-workbench .kipup-message { overflow-wrap: break-word; word-break: normal; }
+.kipup-workbench .kipup-message pre { white-space: pre-wrap; word-break: normal; }
+</style>"""
 
 
 class ControlsMixin:
@@ -186,9 +195,10 @@ class ControlsMixin:
                         W.HBox([self.fig_torque, self.fig_torque_speed, self.fig_speed]),
                         W.HBox([self.fig_force, self.fig_base, self.metrics_html])])
         plots.add_class("kipup-plots")
+        style = W.HTML(WORKBENCH_CSS, layout=W.Layout(display="none"))
         self.widget = W.VBox([header, W.HBox([left, right], layout=W.Layout(flex_flow="row wrap")),
                               timeline_bar, self.timeline, plots,
-                              self.state_json, self.handles_json])
+                              self.state_json, self.handles_json, style])
         self.widget.add_class("kipup-workbench")
         self._publish_state()
 
