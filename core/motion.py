@@ -225,7 +225,7 @@ class MotionMetrics:
     status: str
     duration: float                           # s
     joints: list[JointMetrics]
-    friction_margin: float | None             # min over stance knots of (mu fz - |fx|) / fz
+    friction_margin: float | None             # min over loaded stance knots of (mu fz - |fx|) / fz
     friction_margin_point: str | None
     friction_margin_time: float | None
     min_normal_force: float | None            # min fz over stance knots, N
@@ -235,6 +235,8 @@ class MotionMetrics:
     apex_com_height: float                    # max COM z over the knots, m
     apex_time: float
     total_rotation: float                     # q[-1, pitch] - q[0, pitch], rad (a backflip is about -2 pi)
+    min_load: float = 0.0                     # N: stance knots with fz below it are unloaded (no margin ratio)
+    unloaded_knots: int = 0                   # stance knots left out of the friction margin as unloaded
 
     @property
     def total_positive_work(self) -> float:
@@ -268,13 +270,24 @@ class MotionMetrics:
                 return "no stance"
             return f"{_num(value)}{unit} ({point}, t = {_time(time)} s)"
 
+        def margin() -> str:
+            if self.friction_margin is None:
+                return "n/a (no load)" if self.unloaded_knots else "no stance"
+            where = f"{self.friction_margin_point}, t = {_time(self.friction_margin_time)} s"
+            if self.friction_margin == -math.inf:
+                return f"violated: tangential force without normal load ({where})"
+            skipped = ""
+            if self.unloaded_knots:
+                s = "s" if self.unloaded_knots > 1 else ""
+                skipped = f"; {self.unloaded_knots} unloaded knot{s} (fz < {_num(self.min_load)} N) left out"
+            return f"{self.friction_margin:.3f} ({where}{skipped})"   # 0.000: on the cone's edge
+
         return [
             ["duration", f"{_num(self.duration)} s"],
             ["flight time", f"{_num(self.flight_time)} s"],
             ["apex COM height", f"{_num(self.apex_com_height)} m (t = {_time(self.apex_time)} s)"],
             ["total rotation", f"{_num(self.total_rotation)} rad ({_num(math.degrees(self.total_rotation))} deg)"],
-            ["friction margin", opt(self.friction_margin, "", self.friction_margin_point,
-                                    self.friction_margin_time)],
+            ["friction margin", margin()],
             ["min normal force", opt(self.min_normal_force, " N", self.min_normal_force_point,
                                      self.min_normal_force_time)],
             ["positive work", f"{_num(self.total_positive_work)} J"],
@@ -568,7 +581,8 @@ class Motion:
             inside[ph.last_knot] = False
         return inside
 
-    def metrics(self, robot: Any, *, allow_other_name: bool = False) -> MotionMetrics:
+    def metrics(self, robot: Any, *, allow_other_name: bool = False,
+                min_load: float | None = None) -> MotionMetrics:
         """Figures of the motion against ``robot``'s limits (checks the robot first, see :meth:`check_robot`).
 
         Per joint: peak |tau| over the knots against the actuator's peak torque; peak |qd| of the
@@ -579,10 +593,14 @@ class Motion:
         tau and qd share a sign (infinite at or beyond the no-load speed), else ``|tau| / peak``;
         1 or less is within the envelope (the peak torque is compared separately).
 
-        Whole motion: friction margin = min over stance knots with fz > 0 of
-        ``(mu fz - |fx|) / fz`` (mu from the robot's point; a stance knot with fz <= 0 and
-        fx != 0 counts as -inf); minimum normal force fz over stance knots (N); flight time (s,
-        phases with no contacts); apex height of the COM over the knots (m); total rotation
+        Whole motion: friction margin = min over *loaded* stance knots (fz >= ``min_load`` > 0)
+        of ``(mu fz - |fx|) / fz`` (mu from the robot's point). ``min_load`` (N) defaults to 1 %
+        of the robot's weight: a point about to lift off carries solver noise (fz of +-1e-7 N)
+        whose ratio means nothing, so unloaded knots are left out and counted
+        (``unloaded_knots``); an unloaded knot whose |fx| exceeds ``mu * min_load`` is a real
+        tangential force without load and makes the margin -inf. None when no stance knot is
+        loaded. Minimum normal force fz over stance knots (N); flight time (s, phases with no
+        contacts); apex height of the COM over the knots (m); total rotation
         ``q[-1, pitch] - q[0, pitch]`` (rad).
         """
         from .dynamics import center_of_mass
@@ -621,6 +639,12 @@ class Motion:
 
         # contacts
         mask = self.contact_mask()
+        if min_load is None:
+            min_load = 0.01 * float(robot.total_mass) * float(robot.gravity)
+        min_load = float(min_load)
+        if not (math.isfinite(min_load) and min_load >= 0.0):
+            raise ValueError(f"min_load must be a finite force >= 0 N, got {min_load!r}")
+        unloaded = 0
         margin = fz_min = None
         margin_at: tuple[str | None, float | None] = (None, None)
         fz_at: tuple[str | None, float | None] = (None, None)
@@ -633,9 +657,11 @@ class Motion:
             i = int(np.argmin(fz))
             if fz_min is None or fz[i] < fz_min:
                 fz_min, fz_at = float(fz[i]), (name, float(t[ks[i]]))
+            loaded = (fz >= min_load) & (fz > 0)
+            unloaded += int(np.count_nonzero(~loaded))
             with np.errstate(divide="ignore", invalid="ignore"):
-                m = np.where(fz > 0, (mu * fz - np.abs(fx)) / np.where(fz > 0, fz, 1.0),
-                             np.where(np.abs(fx) > 0, -math.inf, math.nan))
+                m = np.where(loaded, (mu * fz - np.abs(fx)) / np.where(loaded, fz, 1.0),
+                             np.where(np.abs(fx) > mu * min_load, -math.inf, math.nan))
             if np.all(np.isnan(m)):
                 continue
             i = int(np.nanargmin(m))
@@ -652,6 +678,7 @@ class Motion:
             min_normal_force=fz_min, min_normal_force_point=fz_at[0], min_normal_force_time=fz_at[1],
             flight_time=flight, apex_com_height=float(com_z[ka]), apex_time=float(t[ka]),
             total_rotation=float(self.q[-1, 2] - self.q[0, 2]),
+            min_load=min_load, unloaded_knots=unloaded,
         )
 
     def _peak_speed(self) -> tuple[np.ndarray, np.ndarray]:

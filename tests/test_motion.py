@@ -448,6 +448,30 @@ def test_sliding_without_normal_force_has_minus_infinite_margin(robot):
     assert mm.min_normal_force == 0.0
 
 
+
+def test_friction_margin_leaves_out_unloaded_knots(robot):
+    # A push whose last knot is a liftoff: the solver leaves noise there (fz = -3e-7 N with
+    # fx = 1e-6 N, as in the solved backflip), whose ratio (mu fz - |fx|) / fz is -inf or huge.
+    # Loaded knots: (10, 100) -> 0.8 - 0.1 = 0.7 and (20, 50) -> 0.8 - 0.4 = 0.4 (toe mu 0.8).
+    # The default min_load is 1 % of the humanoid's weight (19.7 kg * 9.81 m/s^2 -> 1.93 N).
+    f = np.zeros((4, 1, 2))
+    f[:, 0] = [(10, 100), (20, 50), (1e-6, 2e-7), (1e-6, -3e-7)]
+    m = build(robot, [np.linspace(0, 0.3, 4)], None, None, None, forces=f, points=["toe"], contacts=[["toe"]])
+    mm = m.metrics(robot)
+    assert mm.min_load == pytest.approx(0.01 * robot.total_mass * robot.gravity)
+    assert mm.friction_margin == pytest.approx(0.4) and mm.friction_margin_time == pytest.approx(0.1)
+    assert mm.unloaded_knots == 2
+    text = dict(mm.summary_rows())["friction margin"]
+    assert text.startswith("0.400 (toe, t = 0.1 s") and "2 unloaded knots" in text and "inf" not in text
+    # with no threshold the liftoff knot's noise decides, as before
+    assert m.metrics(robot, min_load=0.0).friction_margin == -math.inf
+    # an explicit threshold above every load: nothing is loaded, the margin says so in words
+    none = m.metrics(robot, min_load=500.0)
+    assert none.friction_margin is None and none.unloaded_knots == 4
+    assert dict(none.summary_rows())["friction margin"] == "n/a (no load)"
+    with pytest.raises(ValueError, match="min_load"):
+        m.metrics(robot, min_load=-1.0)
+
 # ----- robot checks --------------------------------------------------------------------------
 def test_a_motion_from_another_robot_is_rejected(robot):
     m = build(robot, two_grids(), *cubic(robot))
