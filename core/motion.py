@@ -288,8 +288,8 @@ class MotionMetrics:
             ["apex COM height", f"{_num(self.apex_com_height)} m (t = {_time(self.apex_time)} s)"],
             ["total rotation", f"{_num(self.total_rotation)} rad ({_num(math.degrees(self.total_rotation))} deg)"],
             ["friction margin", margin()],
-            ["min normal force", opt(self.min_normal_force, " N", self.min_normal_force_point,
-                                     self.min_normal_force_time)],
+            ["min normal force", opt(None if self.min_normal_force is None else round(self.min_normal_force, 3) + 0.0,
+                                     " N", self.min_normal_force_point, self.min_normal_force_time)],
             ["positive work", f"{_num(self.total_positive_work)} J"],
             ["energy", f"{_num(self.total_energy)} J"],
         ]
