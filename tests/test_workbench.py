@@ -671,3 +671,45 @@ def test_robustness_shows_the_sweep_summary(wb):
     if pitch.size:
         assert f"median {np.median(pitch):.3f}" in text
     assert f"success {100 * rate:.0f} % of 4 samples" in wb.status_text
+
+
+# ----- what the plots show -------------------------------------------------------------------
+def test_nice_ticks_are_round_and_cover_the_data():
+    from kipup.widgets.wb_plots import nice_ticks
+
+    for lo, hi, pad in [(0.0, 1.18, 0.0), (-120.0, 120.0, 0.03), (0.0, 1.0, 0.03), (0.315, 0.86, 0.03), (-28.0, 28.0, 0.03),
+                        (-812.0, 1003.0, 0.03), (0.0, 0.3, 0.0), (-3e-7, 2e-7, 0.03), (5.0, 5.0, 0.03)]:
+        a, b, ticks, fmt = nice_ticks(lo, hi, 7, pad)
+        assert 2 <= len(ticks) <= 7, (lo, hi, ticks)
+        step = ticks[1] - ticks[0]
+        assert np.allclose(np.diff(ticks), step)
+        mant = step / 10.0 ** math.floor(math.log10(step) + 1e-9)
+        assert any(math.isclose(mant, m, rel_tol=1e-9) for m in (1.0, 2.0, 2.5, 5.0)), (lo, hi, step)
+        if pad > 0:   # bounds round out around the data, on ticks
+            assert a <= min(lo, hi) and b >= max(lo, hi) and a < b
+            assert math.isclose(ticks[0], a, abs_tol=1e-9 * step) and math.isclose(ticks[-1], b, abs_tol=1e-9 * step)
+        else:         # bounds stay, ticks inside
+            assert (a, b) == (lo, hi) and ticks[0] >= lo and ticks[-1] <= hi + 1e-12
+        labels = [format(float(x), fmt) for x in ticks]   # the format shows every tick exactly
+        assert all(abs(float(text) - x) < 1e-6 * step for text, x in zip(labels, ticks)), labels
+    assert nice_ticks(0.0, 1.18, 7)[2].tolist() == [0.0, 0.2, 0.4, 0.6, 0.8, 1.0]
+
+
+def test_plots_keep_their_keys_off_the_data_and_fit_their_axes(wb):
+    idle(wb)
+    wb._refresh_plots()
+    for fig in wb.figures.values():
+        assert not any(getattr(m, "display_legend", False) for m in fig.marks), fig.title
+    cells = [c for c in all_widgets(wb.widget) if "kipup-plot-cell" in getattr(c, "_dom_classes", ())]
+    assert len(cells) == 5 and all("kipup-key" in c.children[1].value for c in cells)
+    # the time axes tick on round steps over the motion; the torque axis holds +-peak with room
+    T = wb.motion.tend
+    for axis in wb._t_axes:
+        ticks = np.asarray(axis.tick_values)
+        assert 3 <= ticks.size <= 7 and ticks[0] == 0.0 and ticks[-1] <= T + 1e-9
+    peak = wb.robot.joints[wb._joint_index()].actuator.peak_torque
+    y = wb._ax_tau.scale
+    assert y.min < -peak and y.max > peak and np.asarray(wb._ax_tau.tick_values).size <= 8
+    text = wb.metrics_html.value
+    assert "friction margin" in text and "inf" not in text and "nan" not in text
+    assert "kipup-tabs" in wb.tabs._dom_classes and len(wb.tabs.children) == 7

@@ -13,15 +13,32 @@ import ipywidgets as W
 from kipup.core.trick import Costs, Keyframe
 from .robot_view import rot
 from .wb_common import MIN_PHASE_DURATION
+from .wb_plots import PLOT_MIN_WIDTH
 
 
 TAB_TITLES = ["Solve", "Keyframe", "Goals", "Weights", "Phase", "Record", "Verify"]
-#: scoped to the workbench: tab titles wrap onto a second row instead of being cut; text in the
-#: message and verdict areas wraps between words
+#: width of the controls column (px): with the 560 px view it fits a notebook about 1000 px wide
+CONTROLS_WIDTH = 390
+#: scoped to the workbench: the tab bar is one compact row of titles that share the column's width
+#: (never cut, never wrapped); the plot keys, the metrics table; text in the message and verdict
+#: areas wraps between words
 WORKBENCH_CSS = """<style>
-.kipup-workbench .lm-TabBar-content { flex-wrap: wrap; }
-.kipup-workbench .lm-TabBar { min-height: fit-content; height: auto; overflow: visible; }
-.kipup-workbench .lm-TabBar-tab { flex: 0 0 auto; min-width: 0; max-width: none; padding: 0 8px; }
+.kipup-workbench .kipup-tabs .lm-TabBar-content { flex-wrap: nowrap !important; }
+.kipup-workbench .kipup-tabs .lm-TabBar-tab { flex: 1 1 auto !important; min-width: 0 !important;
+  max-width: none !important; padding: 0 5px !important; font-size: 12px; justify-content: center; }
+.kipup-workbench .kipup-tabs .lm-TabBar-tabLabel { overflow: visible; text-overflow: clip; text-align: center; }
+.kipup-workbench .kipup-status { text-align: right; }
+.kipup-workbench .kipup-key { font-size: 11px; text-align: center; color: #333; line-height: 16px; }
+.kipup-workbench .kipup-metrics-body { font-size: 12px; line-height: 1.35; padding: 4px 8px; }
+.kipup-workbench .kipup-metrics table { border-collapse: collapse; margin: 4px 0 6px 0; }
+.kipup-workbench .kipup-metrics th, .kipup-workbench .kipup-metrics td { padding: 1px 8px 1px 0;
+  text-align: left; vertical-align: top; font-weight: normal; }
+.kipup-workbench .kipup-summary th { white-space: nowrap; color: #555; }
+.kipup-workbench .kipup-ratios tr:first-child th { color: #555; font-size: 11px; border-bottom: 1px solid #ccc; }
+.kipup-workbench .kipup-ratios td { text-align: right; font-family: monospace; }
+.kipup-workbench .kipup-over { color: #c1121f; font-weight: bold; }
+.kipup-workbench .kipup-near { color: #d97706; }
+.kipup-workbench .kipup-note { font-size: 11px; color: #666; }
 .kipup-workbench .kipup-wrap, .kipup-workbench .kipup-message { overflow-wrap: break-word; word-break: normal; }
 .kipup-workbench .kipup-message pre { white-space: pre-wrap; word-break: normal; }
 </style>"""
@@ -114,14 +131,15 @@ class ControlsMixin:
             value = float(getattr(tr.costs, name))
             slider = W.FloatLogSlider(value=value if value > 0 else 1.0, base=10, min=-3, max=3, step=0.05,
                                       description=name, continuous_update=False, readout_format=".3g",
-                                      style={"description_width": "110px"}, layout=W.Layout(width="290px"))
+                                      style={"description_width": "125px"},
+                                      layout=W.Layout(width="auto", flex="1 1 auto", min_width="0"))
             on = W.Checkbox(value=value > 0, indent=False, layout=W.Layout(width="30px"))
             slider.observe(lambda ch, n=name: self._weight_changed(n), names="value")
             on.observe(lambda ch, n=name: self._weight_changed(n), names="value")
             slider.add_class(f"kipup-weight-{name}")
             self.weight_sliders[name] = slider
             self.weight_on[name] = on
-            rows.append(W.HBox([on, slider]))
+            rows.append(W.HBox([on, slider], layout=W.Layout(width="100%")))
         weights_tab = W.VBox(rows)
 
         # Phase tab
@@ -145,6 +163,7 @@ class ControlsMixin:
         record_tab = self._build_record_tab()    # wb_record
         verify_tab = self._build_verify_tab()    # wb_verify
         self.tabs = W.Tab(children=[solve_tab, key_tab, goals_tab, weights_tab, phase_tab, record_tab, verify_tab])
+        self.tabs.add_class("kipup-tabs")
         for i, title in enumerate(TAB_TITLES):
             self.tabs.set_title(i, title)
 
@@ -181,19 +200,24 @@ class ControlsMixin:
         self.handles_json.add_class("kipup-handles")
 
     def _assemble(self) -> None:
-        header = W.HBox([W.HTML(f"<b>kipup workbench</b> &nbsp; trick <code>{self.trick.name}</code> on robot "
-                                f"<code>{self.robot.name}</code>"), self.status],
-                        layout=W.Layout(justify_content="space-between", width="100%"))
+        title = W.HTML(f"<b>kipup workbench</b> &nbsp; trick <code>{self.trick.name}</code> on robot "
+                       f"<code>{self.robot.name}</code>", layout=W.Layout(flex="0 0 auto", margin="0 16px 0 0"))
+        self.status.layout = W.Layout(flex="1 1 0%", min_width="0")
+        header = W.HBox([title, self.status], layout=W.Layout(justify_content="space-between", width="100%",
+                                                              align_items="flex-start"))
         playbar = W.HBox([self.play_button, self.pause_button, self.stop_button, self.speed, self.loop_box])
         # the view keeps its width; the controls wrap below it in a narrow window (never over it)
         left = W.VBox([self.renderer, playbar, self.scrubber],
                       layout=W.Layout(min_width=f"{self._width}px", flex="0 0 auto"))
-        right = W.VBox([self.tabs, self.message], layout=W.Layout(width="340px", flex="0 0 auto",
+        right = W.VBox([self.tabs, self.message], layout=W.Layout(width=f"{CONTROLS_WIDTH}px", flex="0 0 auto",
                                                                   margin="0 0 0 10px"))
+        right.add_class("kipup-right")
         timeline_bar = W.HBox([self._keyframe_mirror_widget(), self.add_key_button, self.remove_key_button])
-        plots = W.VBox([W.HBox([self.joint_pick, self.contact_pick]),
-                        W.HBox([self.fig_torque, self.fig_torque_speed, self.fig_speed]),
-                        W.HBox([self.fig_force, self.fig_base, self.metrics_html])])
+        # plot cells in a grid: as many a row as fit at PLOT_MIN_WIDTH px, at most three
+        grid = W.GridBox(self._plot_cells, layout=W.Layout(
+            width="100%", grid_gap="6px 14px",
+            grid_template_columns=f"repeat(auto-fill, minmax(max({PLOT_MIN_WIDTH}px, calc(33.3% - 14px)), 1fr))"))
+        plots = W.VBox([W.HBox([self.joint_pick, self.contact_pick]), grid])
         plots.add_class("kipup-plots")
         style = W.HTML(WORKBENCH_CSS, layout=W.Layout(display="none"))
         self.widget = W.VBox([header, W.HBox([left, right], layout=W.Layout(flex_flow="row wrap")),

@@ -53,6 +53,7 @@ class PlaybackMixin:
         if self.scrubber.value > T:
             self._set_scrubber(T)
         self._px.min, self._px.max = 0.0, max(T, 1e-3)
+        self._set_time_ticks()
 
     def _update_com_path(self, motion: Motion) -> None:
         ts = np.linspace(motion.t0, motion.tend, COM_PATH_SAMPLES)

@@ -36,7 +36,7 @@ class RecordMixin:
     def _build_record_tab(self) -> W.Widget:
         self.record_format = W.ToggleButtons(options=[("MP4", "mp4"), ("GIF", "gif"), ("strobe PNG", "png")],
                                              value="mp4", description="format",
-                                             style={"button_width": "84px", "description_width": "50px"})
+                                             style={"button_width": "96px", "description_width": "50px"})
         self.record_speed = W.Dropdown(options=RECORD_SPEEDS, value=1.0, description="speed",
                                        style={"description_width": "50px"}, layout=W.Layout(width="210px"))
         self.record_folder = W.Text(value="", placeholder="folder (default: next to the trick file)",

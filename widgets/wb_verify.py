@@ -142,7 +142,7 @@ class VerifyMixin:
     # ----- the tab -----------------------------------------------------------------------------
     def _build_verify_tab(self) -> W.Widget:
         self.sim_start = W.ToggleButtons(options=SIM_STARTS, value="start", description="simulate",
-                                         style={"button_width": "110px", "description_width": "60px"})
+                                         style={"button_width": "130px", "description_width": "60px"})
         self.sim_button = W.Button(description="Simulate", icon="cogs", button_style="info")
         self.sim_button.add_class("kipup-simulate")
         self.sim_ghost_box = W.Checkbox(value=True, description="show the simulated ghost", indent=False)

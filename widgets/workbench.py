@@ -15,7 +15,9 @@
 * **plots** (bqplot): torque of one joint against its +-peak limit and the torque-speed envelope,
   the same joint in the torque-speed plane, its speed against the limit, contact forces (normal,
   tangential, +-mu fz) of one contact point, base height and pitch, and the motion's metrics; phases
-  shaded, a cursor at the playhead.
+  shaded, a cursor at the playhead. Cells of a grid (two a row in a 1000 px notebook, at most
+  three); each plot's key is drawn beneath it (never over the data) and its axes tick on round
+  1-2-2.5-5 steps fitted to the data (``wb_plots.nice_ticks``).
 
 3D scene: the robot at the playhead (a :class:`~kipup.widgets.robot_view.RobotView`), contact
 points lit while in contact with their force arrows, the COM and its path, the terrain (ground,
@@ -44,7 +46,9 @@ renderer; its ``canvas`` inside), ``kipup-status`` (status line, plus ``kipup-st
 ``kipup-state-busy``), ``kipup-state`` (hidden JSON: state, motions, generation...),
 ``kipup-handles`` (hidden JSON: handle name -> [x, y] pixel position in the renderer),
 ``kipup-timeline``, ``kipup-solve``, ``kipup-cancel``, ``kipup-auto``, ``kipup-play``,
-``kipup-pause``, ``kipup-stop``, ``kipup-scrubber``, ``kipup-message``, ``kipup-plots``.
+``kipup-pause``, ``kipup-stop``, ``kipup-scrubber``, ``kipup-message``, ``kipup-plots``
+(``kipup-plot-cell`` per plot, ``kipup-key`` its key, ``kipup-metrics``), ``kipup-tabs`` (the tab
+stack, one row of titles) inside ``kipup-right`` (the controls column).
 
 Code layout: this module holds :class:`Workbench` (construction, state, saving); each of its
 jobs lives in a mixin module of its own: ``wb_scene`` (3D scene, terrain), ``wb_timeline``,
