@@ -329,7 +329,9 @@ class PlotsMixin:
                 f"<table class='kipup-summary'>{rows}</table>"
                 "<table class='kipup-ratios'><tr><th>joint</th><th>peak torque / limit</th>"
                 f"<th>peak speed / limit</th><th>torque-speed envelope</th></tr>{jt}</table>"
-                "<div class='kipup-note'>ratios: 1 or more is at or past the limit</div></div>")
+                "<div class='kipup-note'>ratios: 1 or more is at or past the limit. Friction margin: "
+                "(mu fz - |fx|) / fz at the loaded stance knots, 0 is on the edge of the friction cone."
+                "</div></div>")
         except ValueError as exc:
             self.metrics_html.value = f"metrics unavailable: {_html(str(exc))}"
         self.timings["plots_ms"] = (time.perf_counter() - t0) * 1e3
