@@ -13,8 +13,8 @@ import numpy as np
 
 from .wb_common import _PHASE_COLORS, _html
 
-#: plot cells: at least this wide (px), at most three a row; two a row in a 1000 px notebook
-PLOT_MIN_WIDTH = 420
+#: plot cells: at least this wide (px), at most three a row; two a row in a 750-1100 px notebook
+PLOT_MIN_WIDTH = 360
 PLOT_HEIGHT = "230px"
 _DASH = {"solid": "", "dashed": "6,3", "dotted": "2,2"}
 
