@@ -20,14 +20,16 @@ TAB_TITLES = ["Solve", "Keyframe", "Goals", "Weights", "Phase", "Record", "Verif
 #: width of the controls column (px): with the 560 px view it fits a notebook about 1000 px wide
 CONTROLS_WIDTH = 390
 #: scoped to the workbench: the tab bar is one compact row of titles that share the column's width
-#: (never cut, never wrapped); the plot keys, the metrics table; text in the message and verdict
-#: areas wraps between words
+#: (never cut, never wrapped); text in the controls column is set at 1.4 lines (not ipywidgets'
+#: 28 px rows); the plot keys, the metrics table; text in the message and verdict areas wraps
+#: between words
 WORKBENCH_CSS = """<style>
 .kipup-workbench .kipup-tabs .lm-TabBar-content { flex-wrap: nowrap !important; }
 .kipup-workbench .kipup-tabs .lm-TabBar-tab { flex: 1 1 auto !important; min-width: 0 !important;
   max-width: none !important; padding: 0 5px !important; font-size: 12px; justify-content: center; }
 .kipup-workbench .kipup-tabs .lm-TabBar-tabLabel { overflow: visible; text-overflow: clip; text-align: center; }
 .kipup-workbench .kipup-status { text-align: right; }
+.kipup-workbench .kipup-right .widget-html-content { line-height: 1.4; padding: 2px 0; }
 .kipup-workbench .kipup-key { font-size: 11px; text-align: center; color: #333; line-height: 16px; }
 .kipup-workbench .kipup-metrics-body { font-size: 12px; line-height: 1.35; padding: 4px 8px; }
 .kipup-workbench .kipup-metrics table { border-collapse: collapse; margin: 4px 0 6px 0; }
