@@ -1,6 +1,8 @@
 """From a solved NLP to a :class:`~kipup.core.motion.Motion`, with its constraint report."""
 from __future__ import annotations
 
+from typing import Any
+
 import casadi as ca
 import numpy as np
 
@@ -12,6 +14,7 @@ from .transcription import TrickProblem
 from .trick import Trick
 
 TOL = 1e-5  # constraint violation (scaled units) reported as a violation
+FLIGHT_TOL = 0.02  # m: largest COM distance from the free-fall parabola in a flight phase
 
 
 
@@ -59,6 +62,31 @@ def decode(problem: TrickProblem, trick: Trick, x: np.ndarray, status: str = "so
     if report:
         motion.report = constraint_report(problem, trick, x, motion)
     return motion
+
+
+def flight_deviation(robot: Robot, motion: Motion, phase: Any) -> tuple[float, float]:
+    """Largest distance (m) between the COM at the knots of flight ``phase`` and the free-fall
+    parabola through the COM's position and velocity at the phase's first knot, and its time (s)."""
+    from . import dynamics as dyn
+
+    idx = np.nonzero((motion.t >= phase.start - 1e-12) & (motion.t <= phase.end + 1e-12))[0]
+    if idx.size < 2:
+        return 0.0, float(phase.start)
+    # the first knot of the phase (at a boundary the knot is doubled: take the later copy)
+    i0 = idx[0]
+    while i0 + 1 <= idx[-1] and motion.t[i0 + 1] <= motion.t[i0] + 1e-12:
+        i0 += 1
+    c0 = np.asarray(dyn.center_of_mass(robot, motion.q[i0])).reshape(-1)
+    v0 = np.asarray(dyn.com_velocity(robot, motion.q[i0], motion.qd[i0])).reshape(-1)
+    worst, t_worst = 0.0, float(motion.t[i0])
+    for i in idx[idx > i0]:
+        dt = float(motion.t[i] - motion.t[i0])
+        c = np.asarray(dyn.center_of_mass(robot, motion.q[i])).reshape(-1)
+        free = c0 + v0 * dt + np.array([0.0, -0.5 * robot.gravity * dt * dt])
+        d = float(np.hypot(*(c - free)))
+        if d > worst:
+            worst, t_worst = d, float(motion.t[i])
+    return worst, t_worst
 
 
 def constraint_report(problem: TrickProblem, trick: Trick, x: np.ndarray, motion: Motion,
@@ -133,6 +161,21 @@ def constraint_report(problem: TrickProblem, trick: Trick, x: np.ndarray, motion
                 note(label, label, at, g[offset + row], 0.0, seg[row],
                      f"{label} constraint violated by {seg[row]:.3g} (scaled)")
         offset += n
+    # physics between the knots: in a flight phase the COM must fall freely (a parabola with the
+    # robot's gravity from its position and velocity at takeoff). The knot equations hold, but too
+    # coarse a grid for a fast tuck lets the integrated motion leave that parabola; a controller
+    # executing the plan would then miss its landing by that much.
+    for ph in motion.phases:
+        if ph.contacts:
+            continue
+        dev, t_dev = flight_deviation(r, motion, ph)
+        if dev > FLIGHT_TOL:
+            n = int(np.sum((motion.t > ph.start + 1e-9) & (motion.t <= ph.end + 1e-9)))
+            h = (ph.end - ph.start) / max(n, 1)
+            note("free_fall", ph.name, t_dev, dev, FLIGHT_TOL, dev / FLIGHT_TOL * 1e3,
+                 f"in flight phase {ph.name!r} the COM leaves the free-fall parabola by {dev:.3f} m "
+                 f"(at t = {t_dev:.3f} s; allowed {FLIGHT_TOL:.3f} m): {n} intervals of {h * 1e3:.1f} ms "
+                 f"are too coarse for this motion; give the phase more knots (about one per 10 ms)")
     items = sorted(out.values(), key=lambda v: -v.__dict__.get("_excess", 0.0))
     for v in items:
         v.__dict__.pop("_excess", None)

@@ -138,7 +138,8 @@ class Violation:
     """One limit the motion does not keep.
 
     ``kind``: "torque", "speed", "envelope", "joint_limit", "friction", "normal_force",
-    "clearance", "dynamics", "contact" (or another word); ``name``: the joint, point or
+    "clearance", "dynamics", "contact", "free_fall" (a flight phase whose COM leaves the
+    free-fall parabola between knots) or another word; ``name``: the joint, point, phase or
     constraint concerned; ``time`` (s); ``amount``: the value reached; ``limit``: the bound it
     crosses (both in the unit of the kind, e.g. N m for torque); ``message``: optional text that
     replaces the generated one.

@@ -358,3 +358,55 @@ def test_cli_solve_writes_motion_files(tmp_path, capsys):
     m = Motion.from_json(tmp_path / "out" / "motion.json")
     m2 = Motion.from_npz(tmp_path / "out" / "motion.npz")
     assert np.array_equal(m.q, m2.q) and m.status in ("solved", "acceptable")
+
+
+# ----- free fall between the knots ---------------------------------------------------------------
+def _brick_flight(bump: float = 0.0) -> tuple:
+    """A single rigid body thrown at (1.0, 3.0) m/s: one flight phase whose base follows the
+    free-fall parabola exactly (laws of mechanics: constant horizontal speed, vertical acceleration
+    -g), with ``bump`` m added to the height at the middle knot."""
+    from kipup.core.motion import Motion, PhaseSpan
+    from kipup.core.robot import Link, Point, Robot
+
+    body = Link("brick", 2.0, (0.0, 0.0), 0.03)
+    robot = Robot("brick", (body,), (), (Point("corner", "brick", (0.1, -0.05), 0.5),))
+    t = np.linspace(0.0, 0.5, 11)
+    q = np.c_[1.0 * t, 1.0 + 3.0 * t - 0.5 * robot.gravity * t ** 2, 0.2 * t]
+    q[5, 1] += bump
+    qd = np.c_[np.full_like(t, 1.0), 3.0 - robot.gravity * t, np.full_like(t, 0.2)]
+    qdd = np.tile([0.0, -robot.gravity, 0.0], (t.size, 1))
+    motion = Motion(robot_name="brick", coord_names=list(robot.coord_names), joint_names=[],
+                    contact_points=["corner"], t=t, q=q, qd=qd, qdd=qdd, tau=np.zeros((t.size, 0)),
+                    forces=np.zeros((t.size, 1, 2)), phases=[PhaseSpan("air", 0.0, 0.5, 0, 10, [])],
+                    status="solved", trick_name="throw")
+    return robot, motion
+
+
+def test_flight_deviation_is_zero_on_a_parabola_and_measures_a_bump():
+    from kipup.core.decode import flight_deviation
+
+    robot, motion = _brick_flight()
+    dev, _ = flight_deviation(robot, motion, motion.phases[0])
+    assert dev < 1e-12
+    robot, motion = _brick_flight(bump=0.05)
+    dev, at = flight_deviation(robot, motion, motion.phases[0])
+    assert dev == pytest.approx(0.05, abs=1e-12) and at == pytest.approx(0.25)
+
+
+def test_too_coarse_flight_is_reported_with_advice():
+    """The box jump with its flight on 24 knots (about 21 ms apart) for a fast tuck: the knot
+    equations hold but the COM leaves the free-fall parabola by decimetres between them (measured
+    0.34 m), which the report must say, naming the phase and the remedy; on 40 knots (the template)
+    the report is empty (tests/test_templates.py)."""
+    import dataclasses
+
+    trick, robot = load_template("box_jump")
+    coarse = dataclasses.replace(trick, phases=[dataclasses.replace(p, knots=24) if p.name == "flight" else p
+                                                for p in trick.phases],
+                                 solver=dataclasses.replace(trick.solver, time_limit=300.0))
+    motion, _ = optimize(coarse, robot)
+    found = [v for v in motion.report if v.kind == "free_fall"]
+    assert found, motion.report_text()
+    v = found[0]
+    assert v.name == "flight" and v.amount > 0.02 and v.limit == 0.02
+    assert "flight phase 'flight'" in v.text() and "more knots" in v.text()

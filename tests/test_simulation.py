@@ -257,7 +257,7 @@ def test_push_phase_tracks_the_plan_until_just_before_takeoff(solved):
     assert err[:, :2].max() < 0.02 and err[:, 2].max() < 0.05
 
 
-@pytest.mark.parametrize("name", ["reach_jump", "broad_jump", "box_jump"])
+@pytest.mark.parametrize("name", ["backflip", "reach_jump", "broad_jump", "box_jump"])
 def test_template_lands_and_stands_still(solved, name):
     """From the planned takeoff, nominal model: the robot lands on its feet only and stands still
     one second after the (shifted) end of the landing phase."""
@@ -268,6 +268,26 @@ def test_template_lands_and_stands_still(solved, name):
     assert set(v.touched) <= set(motion.phases[-1].contacts) and not v.other_contacts
     assert v.stands_still and v.success
     assert abs(v.pitch_error_at_touchdown) < 0.1
+
+
+@pytest.mark.parametrize("name", [
+    "backflip", "reach_jump", "broad_jump",
+    pytest.param("box_jump", marks=pytest.mark.xfail(strict=True, reason=(
+        "open: the tracked push leaves with about 2.5 % less momentum than planned, the robot lands "
+        "about 6 cm further forward over its feet than planned and tips over its toes on the box"))),
+])
+def test_whole_template_lands_and_stands_with_flight_lqr(solved, name):
+    """The whole motion from rest, nominal model: PD tracking of the push, TV-LQR in flight, the
+    stance QP after touchdown. The robot lands on its feet only and stands still one second after
+    the (shifted) end of the landing phase."""
+    trick, robot, motion = solved(name)
+    r = simulate(motion, robot, trick.terrain, lqr=True, duration_after=1.0)
+    v = r.verdict
+    assert not v.diverged, v.reason
+    assert set(v.touched) <= set(motion.phases[-1].contacts) and not v.other_contacts, v.touched
+    assert v.stands_still and v.success
+    assert abs(v.pitch_error_at_touchdown) < 0.1, v.pitch_error_at_touchdown
+    assert abs(v.touchdown_time_error) < 0.03, v.touchdown_time_error
 
 
 def test_balance_statics_of_a_standing_robot():
