@@ -281,6 +281,48 @@ def _check_output(path: str | os.PathLike[str], suffixes: Sequence[str]) -> Path
 
 
 # ----- time -----------------------------------------------------------------------------------------
+def _fit_text(fig: Any, text: str, fontsize: float, max_px: float, *, max_lines: int = 3,
+              min_scale: float = 0.7) -> tuple[str, float]:
+    """``text`` laid out to be at most ``max_px`` wide in ``fig`` (display pixels): on one line at
+    ``fontsize`` if it fits, else wrapped at spaces into at most ``max_lines`` lines, shrinking the
+    font (down to ``min_scale`` of it) only when wrapping alone does not do; past that, as many lines
+    as needed and, for a single word wider than the picture, a smaller font still. Returns the text
+    with line breaks and the font size (pt)."""
+    renderer = fig.canvas.get_renderer()
+    probe = fig.text(0.0, 0.0, "", fontsize=fontsize)
+
+    def width(s: str, fs: float) -> float:
+        probe.set_text(s)
+        probe.set_fontsize(fs)
+        return float(probe.get_window_extent(renderer).width)
+
+    def wrap(fs: float) -> list[str]:
+        lines: list[str] = []
+        for word in text.split(" "):
+            if lines and width(lines[-1] + " " + word, fs) <= max_px:
+                lines[-1] += " " + word
+            else:
+                lines.append(word)
+        return lines
+
+    try:
+        fs = float(fontsize)
+        while True:
+            lines = wrap(fs)
+            if len(lines) <= max_lines and all(width(s, fs) <= max_px for s in lines):
+                return "\n".join(lines), fs
+            if fs * 0.92 < min_scale * fontsize:
+                break
+            fs *= 0.92
+        lines = wrap(fs)
+        widest = max(width(s, fs) for s in lines)
+        if widest > max_px:   # a word wider than the room: shrink until it fits
+            fs *= max_px / widest
+        return "\n".join(lines), fs
+    finally:
+        probe.remove()
+
+
 def frame_times(motion: Motion, fps: float = 30.0, slow: float = 1.0) -> np.ndarray:
     """Motion times (s) of the video frames: ``t0 + i * slow / fps`` for every such time up to the
     end, plus the final instant if it is not on that grid.
@@ -635,7 +677,20 @@ class _FrameRenderer:
         f = sc.font
         # title (top right): trick and robot
         title = " · ".join(s for s in (self.trick_name, sc.robot.name) if s)
-        fig.text(0.975, 0.955, title, ha="right", va="top", fontsize=f(1.0), color=MUTED)
+        # beside the clock (top left) when there is room, else on a row of its own beneath it;
+        # wrapped or shrunk to the room either way
+        m = sc.motion
+        longest = max((p.name for p in m.phases), key=len, default="")
+        probe = f"t = {m.tend:.{self.time_digits}f} s  ·  {longest}  ·  {_speed_text(self.slow)}"
+        probe_text = fig.text(0.0, 0.0, probe, fontsize=f(1.45))
+        clock_w = float(probe_text.get_window_extent(self.canvas.get_renderer()).width)
+        probe_text.remove()
+        room = 0.95 * W - clock_w - 1.5 * self.bp
+        y = 0.955
+        if room < 0.3 * W:
+            room, y = 0.95 * W, 0.955 - 1.45 * 1.35 * self.bp / H
+        title, fs = _fit_text(fig, title, f(1.0), room, max_lines=2)
+        fig.text(0.975, y, title, ha="right", va="top", fontsize=fs, color=MUTED, multialignment="right")
         # the bottom strip, in pixels: key (left), phase timeline (middle), scales (right)
         sh = self.strip * H
         self.tl = tl = fig.add_axes((0.0, 0.0, 1.0, self.strip))
@@ -1055,7 +1110,20 @@ def render_strobe(motion: Motion, robot: Robot, trick: Trick | Terrain | None, p
     ax.set_axis_off()
     sc.body_pt = 10.0 * height / 5.0
     sc.edge_pt = 0.9
-    sc.fit(lo, hi, aspect, pad=(0.04, 0.04, 0.10, 0.12))
+    # title and note at the top left, wrapped (or shrunk) to the picture's width; the top padding
+    # makes room for as many lines as they take
+    title = " · ".join(s for s in (trick.name if isinstance(trick, Trick) else motion.trick_name, robot.name) if s)
+    note = f"{n} instants, {motion.t0:.2f}–{motion.tend:.2f} s, fainter = earlier"
+    if spread:
+        note += (f"; each pose drawn {_fmt_len(abs(spread))} {'right' if spread > 0 else 'left'} of the one "
+                 "before for clarity")
+    w_px, h_px = height * aspect * dpi, height * dpi
+    room = w_px * (1.0 - 2 * 0.015)
+    title, title_fs = _fit_text(fig, title, sc.font(1.15), room, max_lines=2)
+    note, note_fs = _fit_text(fig, note, sc.font(0.8), room, max_lines=3)
+    title_h = ((title.count("\n") + 1) * 1.2 + 0.45) * title_fs / 72.0 * dpi / h_px   # fraction of the height
+    text_h = 0.03 + title_h + ((note.count("\n") + 1) * 1.2) * note_fs / 72.0 * dpi / h_px
+    sc.fit(lo, hi, aspect, pad=(0.04, 0.04, 0.10, max(0.12, text_h + 0.03)))
     ax.set_xlim(*sc.xlim)
     ax.set_ylim(*sc.zlim)
     ax.set_aspect("equal", adjustable="datalim")
@@ -1094,16 +1162,8 @@ def render_strobe(motion: Motion, robot: Robot, trick: Trick | Terrain | None, p
         placed.append(x_label[k])
         ax.text(x_label[k], label_z, f"{times[k]:.2f} s", ha="center", va="top", fontsize=sc.font(0.85),
                 color=INK if k == n - 1 else MUTED, zorder=60)
-    x0, x1 = ax.get_xlim()
-    title = " · ".join(s for s in (trick.name if isinstance(trick, Trick) else motion.trick_name, robot.name) if s)
-    note = f"{n} instants, {motion.t0:.2f}–{motion.tend:.2f} s, fainter = earlier"
-    if spread:
-        note += (f"; each pose drawn {_fmt_len(abs(spread))} {'right' if spread > 0 else 'left'} of the one "
-                 "before for clarity")
-    ax.text(x0 + 0.015 * (x1 - x0), z1 - 0.03 * (z1 - z0), title, ha="left", va="top", fontsize=sc.font(1.15),
-            color=INK, zorder=60)
-    ax.text(x0 + 0.015 * (x1 - x0), z1 - 0.03 * (z1 - z0) - 1.9 * sc.font(1.15) / 72 / height * (z1 - z0), note,
-            ha="left", va="top", fontsize=sc.font(0.8), color=MUTED, zorder=60)
+    fig.text(0.015, 0.97, title, ha="left", va="top", fontsize=title_fs, color=INK, zorder=60)
+    fig.text(0.015, 0.97 - title_h, note, ha="left", va="top", fontsize=note_fs, color=MUTED, zorder=60)
     _save_figure(fig, target, dpi)
     return target
 

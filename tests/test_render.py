@@ -190,6 +190,29 @@ def test_strobe_png_and_svg(solved, tmp_path):
     render.render_strobe(motion, robot, trick, ARTIFACTS / "strobe.png")
 
 
+def test_strobe_titles_fit_a_narrow_picture(solved, tmp_path):
+    """A narrow strobe (a robot that stays in place, a small spread, a long trick name): the title
+    and the note are wrapped or shrunk inside the picture, none of their ink touches its right edge."""
+    motion, robot, trick = solved
+    long = copy.deepcopy(trick)
+    long.name = "reach_jump_with_a_rather_long_name_for_so_narrow_a_picture"
+    sky = np.array(to_rgb(render.SKY)) * 255
+    for height, dpi in ((4.0, 100), (2.0, 100), (6.0, 60)):
+        png = render.render_strobe(motion, robot, long, tmp_path / "narrow.png", n=3, spread=0.01, dpi=dpi,
+                                   height=height)
+        with Image.open(png) as im:
+            img = np.asarray(im.convert("RGB")).astype(float)
+        h, w = img.shape[:2]
+        assert w < 1.3 * h, f"not a narrow picture: {w} x {h}"
+        top = img[: h // 3]          # the titles, above the robot
+        ink = np.linalg.norm(top - sky, axis=-1) > 60
+        assert ink[:, : w // 2].sum() > 50, "no title drawn"
+        edge = max(2, w // 100)
+        assert not ink[:, w - edge:].any(), f"the titles run off the right edge at {w} x {h} px"
+        if height == 4.0:
+            Image.fromarray(img.astype(np.uint8)).save(ARTIFACTS / "strobe_narrow.png")
+
+
 def test_plots_png_and_svg(solved, tmp_path):
     motion, robot, _ = solved
     png = render.render_plots(motion, robot, tmp_path / "plots.png", dpi=60)
