@@ -9,6 +9,7 @@ motion, and each of them leaves it idle again. Run with OMP_NUM_THREADS=1 on sha
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -195,10 +196,12 @@ def test_moving_a_phase_boundary_changes_durations_and_resolves(wb):
                                              "index": 0})
     assert push.duration == pytest.approx(d_push + 0.04)
     assert flight.duration == pytest.approx(end_flight - push.duration)   # the next boundary stayed
-    assert np.allclose(wb._tl_bounds.x[:2], [push.duration, end_flight])
+    assert wb._tl_bounds.x[0] == pytest.approx(push.duration)   # the dropped marker stays where it was dropped
     idle(wb)
     assert wb.motion_count == count + 1
     assert wb.motion.phases[0].duration == pytest.approx(push.duration)  # the push phase is fixed
+    # the re-solved motion's phases on the timeline, at their solved times
+    assert np.allclose(wb._tl_bounds.x, [p.end for p in wb.motion.phases])
     # far beyond: the free flight phase stops at its minimum
     wb.auto_solve = False
     try:
@@ -219,9 +222,11 @@ def test_moving_a_keyframe_in_time_sets_its_phase_fraction(wb):
         i = [k.name for k in wb.trick.keyframes].index("tuck")
         kf = wb.trick.keyframes[i]
         starts = wb._nominal_starts()
+        flight = wb.motion.phase("flight")   # the timeline draws the phase at its solved time
         wb._tl_keys._handle_custom_msgs(None, {"event": "drag_end", "index": i,
-                                               "point": {"x": starts[1] + 0.25 * (starts[2] - starts[1]), "y": 0.3}})
+                                               "point": {"x": flight.start + 0.25 * flight.duration, "y": 0.3}})
         assert kf.phase == "flight" and kf.time == pytest.approx(0.25)
+        assert wb._tl_keys.x[i] == pytest.approx(flight.start + 0.25 * flight.duration)
         assert wb.selected == i
         wb.move_keyframe(i, starts[2] + 1.0)  # past its phase: clamped to the phase's end
         assert kf.time == 1.0
@@ -381,8 +386,11 @@ def test_playback_clip_has_a_track_per_link_group_and_the_motion_duration(wb):
     assert float(np.asarray(track[f"{wb._player.groups[wb.robot.links[0].name].name}.position"].times)[-1]) == \
         pytest.approx(m.duration, abs=1e-6)
     # play / pause / stop switch between the browser-animated copy and the Python-posed robot
+    assert wb.selected is not None and wb.ghost_root.visible and wb.handles_root.visible
     wb.play()
     assert wb._mode == "playing" and wb.player_root.visible and not wb.static_root.visible
+    # the keyframe's ghost stands still in the middle of the played motion: hidden while playing
+    assert not wb.ghost_root.visible and not wb.handles_root.visible
     # the browser's slider sends back the playhead values Python shows on it (snapped to its step,
     # sometimes late): that is no scrub and must not stop playback
     wb._set_scrubber(0.1234567)
@@ -399,6 +407,7 @@ def test_playback_clip_has_a_track_per_link_group_and_the_motion_duration(wb):
     assert wb.action.timeScale == pytest.approx(0.25)
     wb.stop()
     assert wb._mode == "static" and not wb.player_root.visible and wb.static_root.visible
+    assert wb.ghost_root.visible and wb.handles_root.visible
     wb.speed.value = 1.0
 
 
@@ -413,6 +422,55 @@ def test_playhead_moves_robot_contacts_and_cursors(wb):
     t = 0.5 * (m.phases[1].start + m.phases[1].end)   # mid flight: nothing in contact
     wb.set_playhead(t)
     assert wb.contact_markers["toe"].material is wb._unlit and not wb.force_arrows["toe"].visible
+
+
+def test_timeline_scrubber_and_cursor_share_the_motions_time(wb):
+    """The timeline's axis, the scrubber and the plots span the motion's time; the phases are drawn
+    at their solved times (the free flight phase as long as the solver made it) and the timeline's
+    cursor sits at the playhead anywhere in the motion."""
+    idle(wb)
+    m = wb.motion
+    assert (wb._tl_x.min, wb._tl_x.max) == pytest.approx((m.t0, m.tend))
+    assert wb.scrubber.max == pytest.approx(m.tend) and wb._px.max == pytest.approx(m.tend)
+    assert np.allclose(wb._tl_bounds.x, [p.end for p in m.phases])
+    bands = np.asarray(wb._tl_bands.x)
+    assert np.allclose(bands[:, 0], [p.start for p in m.phases]) and np.allclose(bands[:, 2], [p.end for p in m.phases])
+    assert np.allclose(wb._tl_keys.x, [wb.keyframe_time(k) for k in wb.trick.keyframes])
+    assert "solved" in wb._tl_axis.label
+    for t in (m.t0, m.phases[1].start + 0.3 * m.phases[1].duration, m.tend):
+        wb.set_playhead(t)
+        assert wb._tl_head.x[0] == pytest.approx(t) and wb.scrubber.value == pytest.approx(t, abs=1e-3)
+
+
+def test_the_camera_frames_the_motion(wb):
+    """The side camera frames the robot over the whole motion (and the terrain near it): the box
+    is inside the view with a margin and fills most of it in one direction (no sky-filled view with
+    a small robot in it)."""
+    idle(wb)
+    m = wb.motion
+    lo, hi = wb.motion_bounds(m)
+    # the box holds the robot at every instant and the box it lands on
+    box = wb.trick.terrain.boxes[0]
+    assert hi[1] >= box.height - 1e-9 and lo[1] <= wb.trick.terrain.ground + 1e-9
+    for t in np.linspace(m.t0, m.tend, 9):
+        p = np.array(list(point_positions(wb.robot, m.sample(t)["q"], wb.robot.point_names).values()))
+        assert np.all(p >= lo - 0.03) and np.all(p <= hi + 0.03)   # sampled at 200 instants
+    corners = wb.screen_points([(lo[0], lo[1]), (hi[0], hi[1]), (lo[0], hi[1]), (hi[0], lo[1])])
+    w, h = wb.renderer.width, wb.renderer.height
+    assert np.all(corners[:, 0] > 0.02 * w) and np.all(corners[:, 0] < 0.98 * w)
+    assert np.all(corners[:, 1] > 0.02 * h) and np.all(corners[:, 1] < 0.98 * h)
+    span = max(np.ptp(corners[:, 0]) / w, np.ptp(corners[:, 1]) / h)
+    assert 0.7 < span < 0.95, f"the motion fills {span:.0%} of the view"
+    # small edits leave the camera where it is; a camera the person moved is not moved back
+    wb.frame_camera(m)
+    pos = tuple(wb.camera.position)
+    wb._frame_for_motion(m)
+    assert tuple(wb.camera.position) == pos
+    wb.camera.position = (pos[0] + 0.3, pos[1], pos[2])
+    wb._frame_for_motion(m)
+    assert tuple(wb.camera.position) == (pos[0] + 0.3, pos[1], pos[2])
+    wb.frame_camera(m)
+    assert tuple(wb.camera.position) == pytest.approx(pos)
 
 
 def test_throttle_runs_the_last_call():
@@ -449,7 +507,7 @@ def robot_pixels(frame: np.ndarray, tol: int = 50) -> int:
     return int((np.abs(frame[..., :3].astype(int) - NEAR_LIMB).max(axis=-1) <= tol).sum())
 
 
-def test_record_writes_mp4_gif_and_png_and_shows_them_inline(wb, tmp_path):
+def test_record_writes_mp4_gif_and_png_and_shows_them_inline(wb, tmp_path, monkeypatch):
     import imageio.v2 as imageio_v2
     from PIL import Image
 
@@ -479,7 +537,8 @@ def test_record_writes_mp4_gif_and_png_and_shows_them_inline(wb, tmp_path):
     assert wb.record_view.format == "mp4" and wb.record_view.value == path.read_bytes()
     assert wb.record_view in all_widgets(wb.widget)
     caption = wb.record_out.children[1].value
-    assert str(path) in caption and f"motion #{wb.motion_count}" in caption
+    assert f"motion #{wb.motion_count}" in caption
+    assert caption_path(caption) == str(path.resolve())
     assert "recorded" in wb.record_status.value
 
     # GIF and strobe PNG next to the trick file (path=None)
@@ -506,6 +565,26 @@ def test_record_writes_mp4_gif_and_png_and_shows_them_inline(wb, tmp_path):
     assert wb.record_view.format == "png" and wb.record_view.value == png.read_bytes()
     assert sorted(p.name for p in wb.path.parent.iterdir()) == sorted([gif.name, png.name])  # no temp files
     wb.path = None
+
+    # a relative path: the caption names the file by its absolute path (folder, then file name)
+    monkeypatch.chdir(tmp_path)
+    task = wb.record("rel_strobe.png")
+    assert task.wait(TIMEOUT) and task.ok, task
+    assert task.result.resolve() == tmp_path.resolve() / "rel_strobe.png"
+    caption = wb.record_out.children[1].value
+    shown = caption_path(caption)
+    assert Path(shown).is_absolute() and shown == str(tmp_path.resolve() / "rel_strobe.png"), caption
+    assert f"<b>rel_strobe.png</b>" in caption and str(tmp_path.resolve()) in shown
+
+
+def caption_path(html: str) -> str:
+    """The path in a Record caption as the browser shows it (tags dropped, entities read)."""
+    import html as html_lib
+    import re
+
+    code = re.search(r"<code[^>]*>(.*?)</code>", html, re.S)
+    assert code, html
+    return html_lib.unescape(re.sub(r"<[^>]+>", "", code.group(1)))
 
 
 def test_record_refuses_bad_input_in_words_and_writes_nothing(wb, tmp_path):
@@ -574,13 +653,21 @@ def test_simulate_draws_a_ghost_in_the_playback_clip_and_says_the_verdict(wb, tm
     assert task.wait(TIMEOUT) and task.ok, task
     sim = wb.sim
     assert sim is task.result and wb.current_sim() is sim
-    # the workbench ran exactly what core's simulate gives for these settings
+    # the workbench ran exactly what core's simulate gives for these settings: TV-LQR in flight
+    assert sim.settings["lqr"] is not None and sim.settings["lqr"]["phase"] == "flight"
     again = simulate(motion, wb.robot, wb.trick.terrain, start_time=takeoff_time(motion), duration_after=1.0,
-                     trick_name=wb.trick.name)
+                     trick_name=wb.trick.name, lqr=True)
     assert again == sim
 
     # ghost meshes: a static copy (posed at the playhead) and an animated copy in the same clip
     assert wb.sim_root.visible and wb.sim_player_root.visible
+    # told apart from the plan: a violet wireframe drawn over it (no translucent violet over orange,
+    # which turns brown), and the keyframe's ghost out of the way while it is shown
+    for mesh in wb._sim_static.capsules + wb._sim_player.capsules:
+        mat = mesh.material
+        assert mat.wireframe and not mat.transparent and not mat.depthTest and mesh.renderOrder > 0
+        assert mat.color == "#7b2cbf"
+    assert not wb.ghost_root.visible and not wb.handles_root.visible and not wb.keyframe_ghost_shown()
     assert wb.sim_root in wb.static_root.children and wb.sim_player_root in wb.player_root.children
     tracks = {tr.name: tr for tr in wb.clip.tracks}
     times = None
@@ -590,6 +677,17 @@ def test_simulate_draws_a_ghost_in_the_playback_clip_and_says_the_verdict(wb, tm
         assert f"{g.name}.position" in tracks and f"{g.name}.quaternion" in tracks
         times = np.asarray(tracks[f"{g.name}.position"].times)
     assert wb.clip.duration == pytest.approx(max(motion.duration, sim.t[-1] - motion.t0))
+    # the timeline, the scrubber and the plots all run on to the simulation's end, and the timeline's
+    # cursor follows the playhead past the planned end (it used to stick at the timeline's right end)
+    sim_end = float(sim.t[-1])
+    assert sim_end > motion.tend + 0.05   # it runs on (up to 1 s; a fall ends it early)
+    assert wb.scrubber.max == pytest.approx(sim_end) and wb._tl_x.max == pytest.approx(sim_end)
+    assert wb._px.max == pytest.approx(sim_end)
+    assert "simulation runs on" in list(wb._tl_labels.text)
+    assert np.allclose(wb._tl_bounds.x, [p.end for p in motion.phases])   # the phases stay at their times
+    t_late = motion.tend + 0.6 * (sim_end - motion.tend)
+    wb.set_playhead(t_late)
+    assert wb._tl_head.x[0] == pytest.approx(t_late) and all(c.x[0] == pytest.approx(t_late) for c in wb._cursors)
     # the track values are the simulated poses (not the plan's)
     k = len(times) * 3 // 4
     q_sim = sim_q_at(sim, motion, motion.t0 + np.array([times[k]]))[0]
@@ -627,7 +725,10 @@ def test_simulate_draws_a_ghost_in_the_playback_clip_and_says_the_verdict(wb, tm
     # hiding the ghost takes its tracks out of the clip; showing it brings them back
     wb.sim_ghost_box.value = False
     assert not wb.sim_root.visible and not any(tr.name.startswith("ks_") for tr in wb.clip.tracks)
+    assert wb.ghost_root.visible == (wb.selected is not None) and wb.keyframe_ghost_shown() == (wb.selected is not None)
     assert wb.clip.duration == pytest.approx(motion.duration)
+    assert wb._tl_x.max == pytest.approx(motion.tend) and wb.scrubber.max == pytest.approx(motion.tend)
+    assert "simulation runs on" not in list(wb._tl_labels.text)
     wb.sim_ghost_box.value = True
     assert any(tr.name.startswith("ks_") for tr in wb.clip.tracks)
 

@@ -176,13 +176,15 @@ class LinkMeshes:
 
 
 def build_link_meshes(robot: Robot, *, show_points: bool = True, group_name=None, material=None,
-                      scale: float | None = None) -> LinkMeshes:
+                      scale: float | None = None, segments: int = 16, arc_segments: int = 8) -> LinkMeshes:
     """Build the capsule and point meshes of ``robot`` in link frames (see :class:`LinkMeshes`).
 
     group_name(link_name) -> str names each group (default ``link:NAME``); material(kind, side) ->
     a pythreejs material, ``kind`` being "capsule", "contact_point" or "point" and ``side`` the
     lateral offset (m); default: opaque standard materials in the view's colours. ``scale``: the
     robot's length scale (m, default :func:`robot_size`), which sizes the point spheres.
+    segments / arc_segments: the capsules' lathe segments around their axis and per end cap
+    (coarse ones make a readable wireframe).
     """
     scale = robot_size(robot) if scale is None else scale
     group_name = group_name or (lambda name: f"link:{name}")
@@ -209,7 +211,8 @@ def build_link_meshes(robot: Robot, *, show_points: bool = True, group_name=None
         children = []
         cap = link.capsule
         if cap is not None:
-            geometry = three.LatheBufferGeometry(points=_capsule_profile(cap.length, cap.radius), segments=16)
+            geometry = three.LatheBufferGeometry(points=_capsule_profile(cap.length, cap.radius, arc_segments),
+                                                 segments=int(segments))
             mid = ((cap.start[0] + cap.end[0]) / 2.0, (cap.start[1] + cap.end[1]) / 2.0)
             dx, dz = cap.end[0] - cap.start[0], cap.end[1] - cap.start[1]
             # the lathe axis is local three +y; turn it (about three +z) onto (dx, dz)

@@ -104,9 +104,18 @@ class EditingMixin:
         if self._ghost_q is None:
             self._ghost_q = self.keyframe_q(self.selected)
         self._draw_ghost(self._ghost_q)
-        self.ghost_root.visible = True
-        self.handles_root.visible = True
+        self._update_ghost_visibility()
         self._publish_handles()
+
+    def keyframe_ghost_shown(self) -> bool:
+        """Whether the keyframe's ghost and its handles are drawn: a keyframe is selected, the view
+        is not playing and no simulated ghost is shown (three robots in one place cannot be told apart)."""
+        return self.selected is not None and self._mode == "static" and self._shown_sim() is None
+
+    def _update_ghost_visibility(self) -> None:
+        show = self.keyframe_ghost_shown()
+        self.ghost_root.visible = show
+        self.handles_root.visible = show
 
     def _draw_ghost(self, q: np.ndarray) -> None:
         self._ghost.set_pose(self.robot, q)
@@ -130,6 +139,14 @@ class EditingMixin:
         from the browser, the field of view and the renderer size)."""
         if self.selected is None:
             return {}
+        names = list(self.handles)
+        px = self.screen_points([self.handle_position(n) for n in names])
+        return {n: (float(p[0]), float(p[1])) for n, p in zip(names, px) if np.all(np.isfinite(p))}
+
+    def screen_points(self, points_xz) -> np.ndarray:
+        """Pixel positions (x right, y down, from the renderer's top-left corner) of world points
+        (x, z) in the sagittal plane, from the camera as Python knows it (its position and quaternion
+        as last synced from the browser, the field of view and the renderer size); NaN behind it."""
         cam = np.asarray(self.camera.position, dtype=float)
         qx, qy, qz, qw = self.camera.quaternion
         R = np.array([[1 - 2 * (qy * qy + qz * qz), 2 * (qx * qy - qz * qw), 2 * (qx * qz + qy * qw)],
@@ -138,15 +155,15 @@ class EditingMixin:
         f = 1.0 / math.tan(math.radians(float(self.camera.fov)) / 2.0)
         w, h = float(self.renderer.width), float(self.renderer.height)
         aspect = w / h
-        out = {}
-        for name in self.handles:
-            x, z = self.handle_position(name)
+        out = []
+        for x, z in np.asarray(points_xz, dtype=float).reshape(-1, 2):
             pc = R.T @ (np.array([x, z, 0.0]) - cam)
             if pc[2] >= -1e-9:
-                continue  # behind the camera
+                out.append((math.nan, math.nan))  # behind the camera
+                continue
             ndc_x, ndc_y = f / aspect * pc[0] / -pc[2], f * pc[1] / -pc[2]
-            out[name] = ((ndc_x + 1.0) / 2.0 * w, (1.0 - ndc_y) / 2.0 * h)
-        return out
+            out.append(((ndc_x + 1.0) / 2.0 * w, (1.0 - ndc_y) / 2.0 * h))
+        return np.array(out).reshape(-1, 2)
 
     def _publish_handles(self) -> None:
         if not hasattr(self, "handles_json"):

@@ -29,6 +29,7 @@ class PlaybackMixin:
         self._motion_replaced(self.motion_count)   # an older simulation's ghost goes (wb_verify)
         self._refresh_time_range()
         self._update_com_path(motion)
+        self._frame_for_motion(motion)
         t1 = time.perf_counter()
         self._build_clip(motion)
         t2 = time.perf_counter()
@@ -54,6 +55,7 @@ class PlaybackMixin:
             self._set_scrubber(T)
         self._px.min, self._px.max = 0.0, max(T, 1e-3)
         self._set_time_ticks()
+        self._refresh_timeline()   # the same range, the phases at their solved times
 
     def _update_com_path(self, motion: Motion) -> None:
         ts = np.linspace(motion.t0, motion.tend, COM_PATH_SAMPLES)
@@ -251,20 +253,9 @@ class PlaybackMixin:
                 self._m_ts_dot.x, self._m_ts_dot.y = [float(s["qd"][3 + j])], [float(tau[j])]
 
     def _move_timeline_head(self, t: float | None = None) -> None:
+        """The timeline's cursor: the timeline's axis is the motion's time, like the scrubber's."""
         t = self.playhead if t is None else t
-        tn = self._to_nominal(t)
-        self._tl_head.x = [tn, tn]
-
-    def _to_nominal(self, t: float) -> float:
-        """Motion time (s) -> trick time on the timeline (nominal durations), phase by phase."""
-        m = self.motion
-        starts = self._nominal_starts()
-        if m is None or [p.name for p in m.phases] != [p.name for p in self.trick.phases]:
-            return t
-        span = m.phase_at(float(np.clip(t, m.t0, m.tend)))
-        i = [p.name for p in m.phases].index(span.name)
-        frac = 0.0 if span.duration <= 0 else (t - span.start) / span.duration
-        return starts[i] + float(np.clip(frac, 0.0, 1.0)) * (starts[i + 1] - starts[i])
+        self._tl_head.x = [float(t), float(t)]
 
     def play(self) -> None:
         """Play the motion in the browser from the playhead (AnimationAction, no kernel traffic per frame)."""
@@ -281,6 +272,7 @@ class PlaybackMixin:
         self.player_root.visible = True
         self.static_root.visible = False
         self._mode = "playing"
+        self._update_ghost_visibility()
         self.action.play()
         self._start_ticker()
         self._publish_state()
@@ -304,6 +296,7 @@ class PlaybackMixin:
             self.action.stop()
         self._ticker_stop.set()
         self._mode = "static"
+        self._update_ghost_visibility()
         self.player_root.visible = False
         self.static_root.visible = True
         with self._lock:

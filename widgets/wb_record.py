@@ -178,8 +178,11 @@ class RecordMixin:
         old = self.record_out.children
         self.record_view = view
         size = f"{len(data) / 1e6:.2f} MB" if len(data) >= 1e6 else f"{len(data) / 1e3:.0f} kB"
+        full = path.resolve()
+        folder = _html(str(full.parent).rstrip("/\\") + os.sep).replace(_html(os.sep), _html(os.sep) + "<wbr>")
         caption = W.HTML(f"<div class='kipup-wrap'>motion #{count}, {RECORD_FORMATS[fmt][1]}, {size}:<br>"
-                         f"<code>{_html(str(path))}</code></div>")
+                         f"<code class='kipup-record-file' title='{_html(str(full))}'>{folder}"
+                         f"<b>{_html(full.name)}</b></code></div>")
         caption.add_class("kipup-record-path")
         self.record_out.children = (view, caption)
         for w in old:

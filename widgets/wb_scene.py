@@ -10,11 +10,16 @@ import math
 import numpy as np
 import pythreejs as three
 
-from .robot_view import RobotView, build_link_meshes, to_three
+from kipup.core.ik import point_positions
+from kipup.core.motion import Motion
+from .robot_view import RobotView, build_link_meshes, planar_link_poses, rot, to_three
 from .wb_common import (
     COM_PATH_SAMPLES, _GHOST_COLOR, _HANDLE_COLORS, _LIT_COLOR, _UNLIT_COLOR, _FORCE_COLOR, _COM_COLOR,
     _safe_name, Handle,
 )
+
+FRAME_SAMPLES = 200    #: instants of a motion sampled for the camera's framing box
+FRAME_MARGIN = 0.08    #: the camera's margin around that box, a fraction of its size on each side
 
 
 class SceneMixin:
@@ -27,27 +32,9 @@ class SceneMixin:
         self.renderer, self.camera, self.orbit = self.view.renderer, self.view.camera, self.view.controls
         self.renderer.add_class("kipup-view3d")
 
-        # side camera framing the trick's extent
-        xs = [0.0]
-        tr = self.trick.terrain
-        xs += [b.x_min for b in tr.boxes] + [b.x_max for b in tr.boxes] + [t.x for t in tr.targets] + \
-              [b.x for b in tr.bars]
-        if self.trick.goals.landing_x:
-            xs += list(self.trick.goals.landing_x)
-        x_lo, x_hi = min(xs) - 0.5 * scale, max(xs) + 0.5 * scale
-        # room for the robot standing on the highest box and for a jump of half its height
-        z_hi = max([scale] + [b.height + scale for b in tr.boxes] + [t.z for t in tr.targets]) + 0.6 * scale
-        fov = 40.0
-        aspect = self._width / self._height
-        half_v = math.tan(math.radians(fov) / 2.0)
-        dist = max((x_hi - x_lo) / 2.0 / (half_v * aspect), (z_hi + 0.2) / 2.0 / half_v)
-        cx, cy = (x_lo + x_hi) / 2.0, z_hi / 2.0
-        self.camera.position = (cx, cy, dist)
-        self.camera.quaternion = (0.0, 0.0, 0.0, 1.0)  # looking along -z: the identity for this camera
-        self.camera.fov = fov
-        self.camera.far = max(100.0, 4 * dist)
-        self.orbit.target = (cx, cy, 0.0)
-        self.camera.lookAt((cx, cy, 0.0))
+        # side camera framing the robot standing (the first motion re-frames it, see frame_camera)
+        self._camera_framed: tuple | None = None
+        self.frame_camera()
 
         # static robot: the view's link groups + COM, contact markers, force arrows
         self._lit = three.MeshBasicMaterial(color=_LIT_COLOR)
@@ -153,6 +140,87 @@ class SceneMixin:
         self._pick_move.observe(self._picked_move, names="point")
         self._pick_up.observe(self._picked_up, names="point")
         self.camera.observe(lambda _: self._publish_handles(), names=["position", "quaternion"])
+
+    # ----- framing ----------------------------------------------------------------------------
+    def motion_bounds(self, motion: Motion | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """World box ((x_lo, z_lo), (x_hi, z_hi)) (m) the camera frames: the robot's capsules over
+        the whole motion (sampled; the rest pose without one), the ground under them, and the
+        terrain features (boxes, targets, bars, the landing range) within half a robot size of it."""
+        robot, scale = self.robot, self._scale
+        if motion is not None:
+            qs = motion.sample(np.linspace(motion.t0, motion.tend, FRAME_SAMPLES))["q"]
+        else:
+            qs = [self._rest_q]
+        pts = []
+        names = list(robot.point_names)
+        for q in qs:
+            if not np.all(np.isfinite(q)):
+                continue
+            if names:
+                pts += list(point_positions(robot, q, names).values())
+            for link, (p, th) in zip(robot.links, planar_link_poses(robot, q)):
+                cap = link.capsule
+                if cap is None:
+                    pts.append(p)
+                    continue
+                R = rot(th)
+                for end in (cap.start, cap.end):
+                    c = p + R @ np.asarray(end, dtype=float)
+                    pts += [c - cap.radius, c + cap.radius]
+        pts = np.array(pts) if pts else np.zeros((1, 2))
+        lo, hi = pts.min(axis=0), pts.max(axis=0)
+        tr = self.trick.terrain
+        ground = float(tr.ground)
+        near_lo, near_hi = lo[0] - 0.5 * scale, hi[0] + 0.5 * scale
+        extra = [(lo[0], ground)]
+        for b in tr.boxes:
+            if b.x_max >= near_lo and b.x_min <= near_hi:
+                extra += [(max(b.x_min, near_lo), b.height), (min(b.x_max, near_hi), b.height)]
+        extra += [(t.x, t.z) for t in tr.targets if near_lo <= t.x <= near_hi]
+        extra += [(b.x, b.z) for b in tr.bars if near_lo <= b.x <= near_hi]
+        if self.trick.goals.landing_x:
+            extra += [(min(max(x, near_lo), near_hi), ground) for x in self.trick.goals.landing_x]
+        allp = np.vstack([pts, np.array(extra, dtype=float)])
+        return allp.min(axis=0), allp.max(axis=0)
+
+    def frame_camera(self, motion: Motion | None = None) -> None:
+        """Point the side camera at :meth:`motion_bounds` with a margin (FRAME_MARGIN of the box on
+        each side, at least a tenth of the robot's size), the box centred in the view."""
+        lo, hi = self.motion_bounds(motion)
+        m = np.maximum(FRAME_MARGIN * (hi - lo), 0.1 * self._scale)
+        lo, hi = lo - m, hi + m
+        fov = 40.0
+        aspect = self._width / self._height
+        half_v = math.tan(math.radians(fov) / 2.0)
+        # the near side's capsules stand in front of the sagittal plane: frame the plane from a
+        # little further, by the robot's half width
+        width = max(abs(s) for link in self.robot.links for s in link.sides) if self.robot.links else 0.0
+        dist = max((hi[0] - lo[0]) / 2.0 / (half_v * aspect), (hi[1] - lo[1]) / 2.0 / half_v) + width
+        cx, cy = float(lo[0] + hi[0]) / 2.0, float(lo[1] + hi[1]) / 2.0
+        with self.camera.hold_sync():
+            self.camera.position = (cx, cy, float(dist))
+            self.camera.quaternion = (0.0, 0.0, 0.0, 1.0)  # looking along -z: the identity for this camera
+            self.camera.fov = fov
+            self.camera.far = max(100.0, 4 * dist)
+        self.orbit.target = (cx, cy, 0.0)
+        self._camera_framed = (tuple(self.camera.position), tuple(self.camera.quaternion), (lo, hi))
+
+    def _frame_for_motion(self, motion: Motion) -> None:
+        """Re-frame for a new motion unless the person moved the camera: always for the first one,
+        later only when the motion leaves the framed box (small edits leave the camera still)."""
+        framed = self._camera_framed
+        if framed is None:
+            return
+        pos, quat, (lo, hi) = framed
+        if not (np.allclose(self.camera.position, pos, atol=1e-6) and np.allclose(self.camera.quaternion, quat,
+                                                                                  atol=1e-6)):
+            self._camera_framed = None   # the person moved it: leave it where they put it
+            return
+        first = not getattr(self, "_framed_a_motion", False)
+        b_lo, b_hi = self.motion_bounds(motion)
+        if first or np.any(b_lo < lo - 1e-9) or np.any(b_hi > hi + 1e-9):
+            self.frame_camera(motion)
+        self._framed_a_motion = True
 
     def _rebuild_terrain(self) -> None:
         tr, scale = self.trick.terrain, self._scale

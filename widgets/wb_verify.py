@@ -1,8 +1,8 @@
 """Verification from the workbench: the Verify tab, the simulated ghost and the robustness sweep.
 
 :meth:`VerifyMixin.simulate` runs :func:`kipup.core.tracking.simulate` on the motion on screen in a
-thread of its own. The simulated robot is then drawn as a second translucent skeleton (the *sim
-ghost*): a Python-posed copy at the playhead while paused, and a copy animated by the same
+thread of its own. The simulated robot is then drawn as a violet wireframe over the planned robot
+(the *sim ghost*; the keyframe's ghost is hidden meanwhile): a Python-posed copy at the playhead while paused, and a copy animated by the same
 ``AnimationClip`` as the planned robot during playback (position and quaternion tracks named
 ``ks_LINK``), so both play under one playhead. Past the planned end the planned robot holds its
 last pose while the simulation goes on (its ``duration_after``, 1 s by default). The verdict is
@@ -32,8 +32,8 @@ from kipup.core.robot import Robot
 from .robot_view import build_link_meshes, pitch_quaternion
 from .wb_common import BackgroundTask, _html, _safe_name, run_in_thread
 
-SIM_GHOST_COLOR = "#7b2cbf"     #: the simulated robot: violet, translucent
-SIM_GHOST_OPACITY = 0.45
+SIM_GHOST_COLOR = "#7b2cbf"     #: the simulated robot: a violet wireframe drawn over everything
+SIM_GHOST_SEGMENTS = (6, 2)     #: its capsules' lathe segments (around, per end cap): a sparse cage
 SWEEP_SAMPLES = 8               #: default number of samples of the Robustness sweep
 SIM_STARTS = [("from the start", "start"), ("from takeoff", "takeoff")]
 
@@ -121,15 +121,23 @@ class VerifyMixin:
 
     # ----- scene objects (called from _build_scene) -------------------------------------------
     def _build_sim_meshes(self) -> None:
-        mat = three.MeshStandardMaterial(color=SIM_GHOST_COLOR, transparent=True, opacity=SIM_GHOST_OPACITY,
-                                         depthWrite=False, roughness=0.7)
+        # A wireframe, not a translucent body: a translucent violet over the orange plan mixes into
+        # brown where the two coincide, while lines drawn over the plan (no depth test, drawn last)
+        # keep both readable: the solid robot is the plan, the violet cage the simulation.
+        mat = three.MeshBasicMaterial(color=SIM_GHOST_COLOR, wireframe=True, depthTest=False, depthWrite=False)
+        self._sim_material = mat
+        seg, arc = SIM_GHOST_SEGMENTS
         self._sim_static = build_link_meshes(self.robot, show_points=False, group_name=lambda n: f"sim:{n}",
-                                             material=lambda kind, side: mat, scale=self._scale)
+                                             material=lambda kind, side: mat, scale=self._scale,
+                                             segments=seg, arc_segments=arc)
         self.sim_root = three.Group(name="sim-ghost", visible=False,
                                     children=tuple(self._sim_static.groups.values()))
         self._sim_player = build_link_meshes(self.robot, show_points=False,
                                              group_name=lambda n: f"ks_{_safe_name(n)}",
-                                             material=lambda kind, side: mat, scale=self._scale)
+                                             material=lambda kind, side: mat, scale=self._scale,
+                                             segments=seg, arc_segments=arc)
+        for mesh in self._sim_static.capsules + self._sim_player.capsules:
+            mesh.renderOrder = 15   # after the robots and the terrain
         self.sim_player_root = three.Group(name="ks_sim", visible=False,
                                            children=tuple(self._sim_player.groups.values()))
         self.sim: SimResult | None = None
@@ -158,7 +166,10 @@ class VerifyMixin:
         self.sim_button.on_click(lambda _: self._verify_clicked(self.simulate))
         self.sweep_button.on_click(lambda _: self._verify_clicked(
             lambda **kw: self.robustness(n=int(self.sweep_n.value), **kw)))
-        return W.VBox([self.sim_start, W.HBox([self.sim_button, self.sim_ghost_box]), self.verdict,
+        note = W.HTML("<small>violet cage: the simulated robot; solid: the plan. The keyframe's ghost and "
+                      "handles are hidden while the simulated ghost is shown.</small>")
+        note.add_class("kipup-wrap")
+        return W.VBox([self.sim_start, W.HBox([self.sim_button, self.sim_ghost_box]), note, self.verdict,
                        W.HTML("<b>Robustness</b>: a short sweep over model and execution errors"),
                        W.HBox([self.sweep_n, self.sweep_button]), self.sweep_summary])
 
@@ -172,6 +183,8 @@ class VerifyMixin:
         if start not in ("start", "takeoff"):
             raise ValueError(f"start must be 'start' or 'takeoff'; got {start!r}")
         kw: dict[str, Any] = {"duration_after": float(duration_after)}
+        if any(not p.contacts for p in motion.phases):
+            kw["lqr"] = True  # the best flight controller there is: TV-LQR around the plan
         if start == "takeoff":
             kw["start_time"] = takeoff_time(motion)
         return kw
@@ -257,6 +270,7 @@ class VerifyMixin:
             self.sim = self.sim_motion = None
             self.verdict.value = "<i>not simulated yet</i>"
             self.sim_root.visible = self.sim_player_root.visible = False
+            self._update_ghost_visibility()
             if had and self.motion is not None:
                 self._refresh_time_range()
                 self._build_clip(self.motion)
@@ -266,17 +280,20 @@ class VerifyMixin:
         show = self._shown_sim() is not None
         self.sim_root.visible = show
         self.sim_player_root.visible = show
+        self._update_ghost_visibility()
         if self.motion is not None and self.sim is not None and self.sim_motion is self.motion:
             # the clip carries the ghost's tracks only while it is shown
             names = {tr.name for tr in self.clip.tracks} if self.clip is not None else set()
             has = any(n.startswith("ks_") for n in names)
             if has != show:
+                self._refresh_time_range()   # the view runs on to the simulation's end, or not
                 self._build_clip(self.motion)
 
     def _motion_replaced(self, count: int) -> None:
         """A new motion is on screen: an older simulation's ghost goes, its verdict says so."""
         if self.sim is not None and self.sim_motion is not self.motion:
             self.sim_root.visible = self.sim_player_root.visible = False
+            self._update_ghost_visibility()
             if not self.verdict.value.startswith("<b>for motion"):
                 self.verdict.value = self._stale_note(count) + self.verdict.value.split(":", 1)[-1]
         if self.sweep is not None and self.sweep_motion is not self.motion and \
