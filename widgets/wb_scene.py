@@ -197,12 +197,16 @@ class SceneMixin:
         width = max(abs(s) for link in self.robot.links for s in link.sides) if self.robot.links else 0.0
         dist = max((hi[0] - lo[0]) / 2.0 / (half_v * aspect), (hi[1] - lo[1]) / 2.0 / half_v) + width
         cx, cy = float(lo[0] + hi[0]) / 2.0, float(lo[1] + hi[1]) / 2.0
+        # the orbit's target first: the browser's OrbitControls turn the camera towards their target
+        # whenever they update, so a camera moved before its target would end up looking at the old
+        # one (a tilted view); lookAt at the end settles it whatever the order the browser applies
+        self.orbit.target = (cx, cy, 0.0)
         with self.camera.hold_sync():
             self.camera.position = (cx, cy, float(dist))
             self.camera.quaternion = (0.0, 0.0, 0.0, 1.0)  # looking along -z: the identity for this camera
             self.camera.fov = fov
             self.camera.far = max(100.0, 4 * dist)
-        self.orbit.target = (cx, cy, 0.0)
+        self.camera.lookAt((cx, cy, 0.0))
         self._camera_framed = (tuple(self.camera.position), tuple(self.camera.quaternion), (lo, hi))
 
     def _frame_for_motion(self, motion: Motion) -> None:
