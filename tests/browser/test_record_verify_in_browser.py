@@ -157,13 +157,16 @@ def test_record_and_simulate_with_the_mouse(page, lab_server):
     button.scroll_into_view_if_needed()
     _shot(page, button, "rv_1_record_tab")
     status = root.locator(".kipup-record-status")
+    # the tab already shows what the notebook recorded (its last recording may have the same
+    # name), so mark that caption and wait for a new caption element (it replaces the old one only
+    # after success) or for a failure
+    page.evaluate("() => document.querySelectorAll('.kipup-workbench .kipup-record-path')"
+                  ".forEach(c => { c.dataset.kipupOld = '1'; })")
     t_click = time.time()
     button.click()
-    # the tab already shows what the notebook recorded, so wait for this recording's caption (it
-    # replaces the old one only after success) or for a failure
     page.wait_for_function(
         "() => { const w = document.querySelector('.kipup-workbench');"
-        " const c = w.querySelector('.kipup-record-path');"
+        " const c = w.querySelector('.kipup-record-path:not([data-kipup-old])');"
         " return (c && /reach_jump\\.mp4/.test(c.textContent)) ||"
         " /Recording failed|Not recorded/.test(w.querySelector('.kipup-record-status').textContent); }",
         timeout=RESULT_TIMEOUT_MS)
