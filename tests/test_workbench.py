@@ -8,6 +8,7 @@ motion, and each of them leaves it idle again. Run with OMP_NUM_THREADS=1 on sha
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from pathlib import Path
 
@@ -680,14 +681,37 @@ def test_simulate_draws_a_ghost_in_the_playback_clip_and_says_the_verdict(wb, tm
     # the timeline, the scrubber and the plots all run on to the simulation's end, and the timeline's
     # cursor follows the playhead past the planned end (it used to stick at the timeline's right end)
     sim_end = float(sim.t[-1])
-    assert sim_end > motion.tend + 0.05   # it runs on (up to 1 s; a fall ends it early)
-    assert wb.scrubber.max == pytest.approx(sim_end) and wb._tl_x.max == pytest.approx(sim_end)
-    assert wb._px.max == pytest.approx(sim_end)
-    assert "simulation runs on" in list(wb._tl_labels.text)
+    runs_on = sim_end > motion.tend + 1e-6   # up to 1 s past the plan; a fall can end it earlier
+    end = max(motion.tend, sim_end)
+    assert wb.scrubber.max == pytest.approx(end) and wb._tl_x.max == pytest.approx(end)
+    assert wb._px.max == pytest.approx(end)
+    assert ("simulation runs on" in list(wb._tl_labels.text)) == runs_on
     assert np.allclose(wb._tl_bounds.x, [p.end for p in motion.phases])   # the phases stay at their times
-    t_late = motion.tend + 0.6 * (sim_end - motion.tend)
+    t_late = motion.tend + 0.6 * (sim_end - motion.tend) if runs_on else 0.9 * motion.tend
     wb.set_playhead(t_late)
     assert wb._tl_head.x[0] == pytest.approx(t_late) and all(c.x[0] == pytest.approx(t_late) for c in wb._cursors)
+    # the same with a simulation that surely runs on (this one's last state held for another second)
+    extra = np.linspace(sim.t[-1], max(float(sim.t[-1]), motion.tend) + 1.0, 101)[1:]
+    k = extra
+    held = dataclasses.replace(sim, t=np.concatenate([sim.t, extra]),
+                               **{a: np.concatenate([getattr(sim, a), np.repeat(getattr(sim, a)[-1:], k.size, axis=0)])
+                                  for a in ("q", "qd", "q_plan", "tau", "forces")})
+    with wb._lock:
+        wb.sim = held
+        wb._refresh_time_range()
+        wb._build_clip(motion)
+    end = float(held.t[-1])
+    assert end > motion.tend + 0.9
+    assert wb.scrubber.max == pytest.approx(end) and wb._tl_x.max == pytest.approx(end)
+    assert wb.clip.duration == pytest.approx(end - motion.t0)
+    assert "simulation runs on" in list(wb._tl_labels.text)
+    t_late = motion.tend + 0.6 * (end - motion.tend)
+    wb.set_playhead(t_late)
+    assert wb._tl_head.x[0] == pytest.approx(t_late) and all(c.x[0] == pytest.approx(t_late) for c in wb._cursors)
+    with wb._lock:
+        wb.sim = sim
+        wb._refresh_time_range()
+        wb._build_clip(motion)
     # the track values are the simulated poses (not the plan's)
     k = len(times) * 3 // 4
     q_sim = sim_q_at(sim, motion, motion.t0 + np.array([times[k]]))[0]

@@ -33,7 +33,7 @@ from .robot_view import build_link_meshes, pitch_quaternion
 from .wb_common import BackgroundTask, _html, _safe_name, run_in_thread
 
 SIM_GHOST_COLOR = "#7b2cbf"     #: the simulated robot: a violet wireframe drawn over everything
-SIM_GHOST_SEGMENTS = (6, 2)     #: its capsules' lathe segments (around, per end cap): a sparse cage
+SIM_GHOST_SEGMENTS = (4, 1)     #: its capsules' lathe segments (around, per end cap): a sparse cage
 SWEEP_SAMPLES = 8               #: default number of samples of the Robustness sweep
 SIM_STARTS = [("from the start", "start"), ("from takeoff", "takeoff")]
 
