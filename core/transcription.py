@@ -549,12 +549,30 @@ class TrickProblem:
             lb[b.offset:b.offset + nq] = 0.0
             ub[b.offset:b.offset + nq] = 0.0
         if trick.end_at_rest:
+            # at rest: every velocity zero and the joints not accelerating. The base acceleration is
+            # left to the equations of motion: with the feet held it follows from the joints', and
+            # fixing it too made the constraints dependent (multipliers 1e13-1e18, IPOPT ending in
+            # Error_In_Step_Computation on the backflip and box jump).
             last = self.phases[-1]
-            for name in (f"v{last.index}", f"a{last.index}"):
+            for name, first in ((f"v{last.index}", 0), (f"a{last.index}", 3)):
                 b = X.blocks[name]
                 end = b.offset + b.size
-                lb[end - nq:end] = 0.0
-                ub[end - nq:end] = 0.0
+                lb[end - nq + first:end] = 0.0
+                ub[end - nq + first:end] = 0.0
+        # Liftoff: a point that leaves its surface when its stance phase ends carries no force at
+        # that instant (the normal force of a unilateral contact falls to zero as it opens). Left
+        # free, the last knot's force is a push the tracked robot cannot reproduce: it lifted off
+        # 5-8 ms early and left with 2.5 % less momentum than planned.
+        for ph, nxt in zip(self.phases[:-1], self.phases[1:]):
+            if not ph.nc:
+                continue
+            staying = {c.point for c in nxt.contacts}
+            b = X.blocks[f"lam{ph.index}"]
+            for c, row in enumerate(ph.contacts):
+                if row.point not in staying:
+                    k = b.offset + b.size - 2 * ph.nc + 2 * c
+                    lb[k:k + 2] = 0.0
+                    ub[k:k + 2] = 0.0
         s = X.scale
         lbg, ubg = self._g_lb.copy(), self._g_ub.copy()
         if trick.goals.landing_x is not None:
