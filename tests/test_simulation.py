@@ -270,7 +270,7 @@ def test_template_lands_and_stands_still(solved, name):
     assert abs(v.pitch_error_at_touchdown) < 0.1
 
 
-@pytest.mark.parametrize("name", ["backflip", "reach_jump", "broad_jump", "box_jump"])
+@pytest.mark.parametrize("name", ["backflip", "reach_jump", "broad_jump", "box_jump", "quadruped_jump"])
 def test_whole_template_lands_and_stands_with_flight_lqr(solved, name):
     """The whole motion from rest, nominal model: PD tracking of the push, TV-LQR in flight, the
     stance QP after touchdown. The robot lands on its feet only and stands still one second after
