@@ -246,15 +246,17 @@ def test_flight_from_planned_takeoff_reproduces_the_plan(solved):
     assert abs(r.verdict.touchdown_time_error) < 0.01
 
 
-def test_push_phase_tracks_the_plan_until_just_before_takeoff(solved):
-    """From rest, joint PD + feedforward follows the planned push within 2 cm / 0.05 rad up to 50 ms
-    before takeoff (the plan's last push knots carry contact-force spikes that no torque-limited
-    robot reproduces; the landing tests therefore start at the planned takeoff state)."""
-    trick, robot, motion = solved("reach_jump")
+@pytest.mark.parametrize("name", ["reach_jump", "box_jump", "backflip"])
+def test_push_phase_tracks_the_plan_up_to_takeoff(solved, name):
+    """From rest, joint PD + feedforward follows the planned push up to the planned takeoff within
+    1 cm (base position) and 0.1 rad (pitch and joints); measured at most 2.5 mm and 0.069 rad.
+    (Before the liftoff force was fixed at zero, the last push knots carried force peaks that no
+    torque-limited robot reproduces, and this held only up to 50 ms before takeoff.)"""
+    trick, robot, motion = solved(name)
     r = simulate(motion, robot, trick.terrain, duration_after=0.0)
-    push = r.t < takeoff(motion) - 0.05
+    push = r.t < takeoff(motion)
     err = np.abs(r.q[push] - r.q_plan[push])
-    assert err[:, :2].max() < 0.02 and err[:, 2].max() < 0.05
+    assert err[:, :2].max() < 0.01 and err[:, 2:].max() < 0.1
 
 
 @pytest.mark.parametrize("name", ["backflip", "reach_jump", "broad_jump", "box_jump"])
