@@ -1,11 +1,10 @@
 """From a solved NLP to a :class:`~kipup.core.motion.Motion`, with its constraint report."""
 from __future__ import annotations
 
-from typing import Any
-
 import casadi as ca
 import numpy as np
 
+from . import dynamics as dyn
 from .limits import RANGE_TOL, SPEED_TOL
 from .motion import Impulse, Motion, PhaseSpan, Violation
 from .robot import Robot
@@ -64,11 +63,9 @@ def decode(problem: TrickProblem, trick: Trick, x: np.ndarray, status: str = "so
     return motion
 
 
-def flight_deviation(robot: Robot, motion: Motion, phase: Any) -> tuple[float, float]:
+def flight_deviation(robot: Robot, motion: Motion, phase: PhaseSpan) -> tuple[float, float]:
     """Largest distance (m) between the COM at the knots of flight ``phase`` and the free-fall
     parabola through the COM's position and velocity at the phase's first knot, and its time (s)."""
-    from . import dynamics as dyn
-
     idx = np.nonzero((motion.t >= phase.start - 1e-12) & (motion.t <= phase.end + 1e-12))[0]
     if idx.size < 2:
         return 0.0, float(phase.start)

@@ -31,10 +31,11 @@ COLD_OPTIONS = {
 }
 # Warm solves start from the previous primal-dual solution. Measured on the bundled templates:
 # IPOPT clips warm-start multipliers to warm_start_mult_init_max (default 1e6), and
-# the solutions of these NLPs carry multipliers up to ~1e9 (rest constraints at the last knot),
-# so the clipped start had a dual infeasibility of ~1e6 and took 100-400 iterations to re-solve
-# an unchanged trick; unclipped, and with the barrier started near its final value (1e-8), the
-# benchmark edits take 3-17 iterations (the effort weight x2: 6-41).
+# the solutions of these NLPs carried multipliers up to ~1e9 (on the rest constraints of the last
+# knot, dependent until end-at-rest stopped fixing the base acceleration; now up to ~3e5), so the
+# clipped start had a dual infeasibility of ~1e6 and took 100-400 iterations to re-solve an
+# unchanged trick; unclipped, and with the barrier started near its final value (1e-8), the
+# benchmark edits take 7-13 iterations.
 WARM_OPTIONS = {
     "ipopt.mu_strategy": "monotone",
     "ipopt.mu_init": 1e-8,
@@ -50,7 +51,7 @@ WARM_OPTIONS = {
 
 # A warm start needs the multipliers of a KKT point. After a solve that IPOPT did not call
 # optimal (a feasible point kept after Error_In_Step_Computation etc., status 'acceptable' here;
-# box_jump and reach_jump end cold solves so, with multipliers far from a KKT point) the next
+# box_jump and reach_jump ended cold solves so before the end-at-rest fix) the next
 # solve starts from its primal point only, with the cold options: measured, that reached the
 # true optimum (objective 8.36 against 22.3 on box_jump, 2.33 against 12.8 on reach_jump) in
 # 25-126 iterations, where the former warm options took 44-349 and stayed at 22 on box_jump.
