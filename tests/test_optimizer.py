@@ -164,16 +164,13 @@ def test_resimulating_torques_and_forces_reproduces_the_motion(backflip):
     compared: the position-level contact leaves a knot's acceleration along the contact free, and
     the backflip's first knot carries a force the constraint does not need: 43 N against 94 N.)
     """
-    _, robot, _, _, motion = backflip
+    _, robot, solver, _, motion = backflip
     dt, alpha, nq = 1e-3, 20.0, robot.nq
-    for span in motion.phases:
+    for span, layout in zip(motion.phases, solver.problem.phases):
         ks = np.arange(span.first_knot, span.last_knot + 1)
         tt = motion.t[ks]
-        held, links = [], set()
-        for point in span.contacts:  # a second point on a held link is held in z only
-            link = robot.point(point).link
-            held.append((point, [0, 1] if link not in links else [1]))
-            links.add(link)
+        # the rows the transcription holds: x and z, or z only for a second point on a held link
+        held = [(row.point, [0, 1] if row.hold_x else [1]) for row in layout.contacts]
         for k0 in (0, 5, 10, 15):
             if k0 >= len(ks) - 1:
                 continue
@@ -185,7 +182,7 @@ def test_resimulating_torques_and_forces_reproduces_the_motion(backflip):
                 M = np.asarray(dyn.crba(robot, q))
                 rhs = np.r_[np.zeros(3), tau] - np.asarray(dyn.rnea(robot, q, qd, np.zeros(nq))).ravel()
                 if not held:
-                    return np.linalg.solve(M, rhs), np.zeros(0)
+                    return np.linalg.solve(M, rhs)
                 J = np.vstack([np.asarray(dyn.point_jacobian(robot, q, p))[rows] for p, rows in held])
                 jd = np.concatenate([np.asarray(dyn.point_jdot_qdot(robot, q, qd, p)).ravel()[rows]
                                      for p, rows in held])
@@ -194,16 +191,16 @@ def test_resimulating_torques_and_forces_reproduces_the_motion(backflip):
                 m = J.shape[0]
                 kkt = np.block([[M, -J.T], [J, np.zeros((m, m))]])
                 sol = np.linalg.solve(kkt, np.r_[rhs, -jd - 2 * alpha * (J @ qd) - alpha ** 2 * e])
-                return sol[:nq], sol[nq:]
+                return sol[:nq]  # qdd (the contact forces are sol[nq:])
 
             t = tt[k0]
             t_end = min(span.end, t + 0.1)
             while t < t_end - 1e-12:
                 h = min(dt, t_end - t)
-                k1v, k1a = qd, solve(t, q, qd)[0]
-                k2v, k2a = qd + h / 2 * k1a, solve(t + h / 2, q + h / 2 * k1v, qd + h / 2 * k1a)[0]
-                k3v, k3a = qd + h / 2 * k2a, solve(t + h / 2, q + h / 2 * k2v, qd + h / 2 * k2a)[0]
-                k4v, k4a = qd + h * k3a, solve(t + h, q + h * k3v, qd + h * k3a)[0]
+                k1v, k1a = qd, solve(t, q, qd)
+                k2v, k2a = qd + h / 2 * k1a, solve(t + h / 2, q + h / 2 * k1v, qd + h / 2 * k1a)
+                k3v, k3a = qd + h / 2 * k2a, solve(t + h / 2, q + h / 2 * k2v, qd + h / 2 * k2a)
+                k4v, k4a = qd + h * k3a, solve(t + h, q + h * k3v, qd + h * k3a)
                 q = q + h / 6 * (k1v + 2 * k2v + 2 * k3v + k4v)
                 qd = qd + h / 6 * (k1a + 2 * k2a + 2 * k3a + k4a)
                 t += h

@@ -2,10 +2,10 @@
 
 :meth:`VerifyMixin.simulate` runs :func:`kipup.core.tracking.simulate` on the motion on screen in a
 thread of its own. The simulated robot is then drawn as a violet wireframe over the planned robot
-(the *sim ghost*; the keyframe's ghost is hidden meanwhile): a Python-posed copy at the playhead while paused, and a copy animated by the same
-``AnimationClip`` as the planned robot during playback (position and quaternion tracks named
-``ks_LINK``), so both play under one playhead. Past the planned end the planned robot holds its
-last pose while the simulation goes on (its ``duration_after``, 1 s by default). The verdict is
+(the *sim ghost*; the keyframe's ghost is hidden meanwhile): a Python-posed copy at the playhead
+while paused, and a copy animated by the same ``AnimationClip`` as the planned robot during
+playback (position and quaternion tracks named ``ks_LINK``), so both play under one playhead.
+Past the planned end the planned robot holds its last pose while the simulation goes on (its ``duration_after``, 1 s by default). The verdict is
 written in words beside it. :meth:`VerifyMixin.robustness` runs a short Monte Carlo sweep
 (:func:`kipup.core.sweep.run_sweep`, a process pool) and shows its summary table.
 
