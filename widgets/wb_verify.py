@@ -5,9 +5,10 @@ thread of its own. The simulated robot is then drawn as a violet wireframe over 
 (the *sim ghost*; the keyframe's ghost is hidden meanwhile): a Python-posed copy at the playhead
 while paused, and a copy animated by the same ``AnimationClip`` as the planned robot during
 playback (position and quaternion tracks named ``ks_LINK``), so both play under one playhead.
-Past the planned end the planned robot holds its last pose while the simulation goes on (its ``duration_after``, 1 s by default). The verdict is
-written in words beside it. :meth:`VerifyMixin.robustness` runs a short Monte Carlo sweep
-(:func:`kipup.core.sweep.run_sweep`, a process pool) and shows its summary table.
+Past the planned end the planned robot holds its last pose while the simulation goes on (its
+``duration_after``, 1 s by default). The verdict is written in words beside it.
+:meth:`VerifyMixin.robustness` runs a short Monte Carlo sweep (:func:`kipup.core.sweep.run_sweep`,
+a process pool) and shows its summary table.
 
 A simulation belongs to the motion it was run on: a new motion hides its ghost and marks the
 verdict as out of date.
