@@ -19,6 +19,7 @@ from typing import Any, Callable
 import casadi as ca
 import numpy as np
 
+from .derivatives import structured_derivatives
 from .guess import initial_guess
 from .robot import Robot
 from .transcription import TrickProblem, structure_key
@@ -181,15 +182,10 @@ class TrickSolver:
         return self._solvers[kind]
 
     def _shared_derivatives(self) -> dict[str, ca.Function]:
-        """Gradient, constraint Jacobian and Lagrangian Hessian of the NLP, built once for both
-        IPOPT instances: differentiated on the MX graph (fast to build, slow to evaluate: 23 ms
-        per Hessian on the backflip) and expanded to SX (2.8 ms), 1.8 s in all against 2.2 s for
-        differentiating an all-SX graph."""
+        """Gradient, constraint Jacobian and Lagrangian Hessian of the NLP, built once from its
+        structure (:mod:`kipup.core.derivatives`) and shared by both IPOPT instances."""
         if self._derivatives is None:
-            probe = ca.nlpsol("kipup_derivatives", "ipopt", self.problem.nlp, {"print_time": False})
-            self._derivatives = {name: probe.get_function(fn).expand()
-                                 for name, fn in (("grad_f", "nlp_grad_f"), ("jac_g", "nlp_jac_g"),
-                                                  ("hess_lag", "nlp_hess_l"))}
+            self._derivatives = structured_derivatives(self.problem)
         return self._derivatives
 
     def prepare(self, trick: Trick, warm: bool = True) -> None:

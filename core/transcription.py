@@ -161,6 +161,19 @@ class ReachLayout:
     hard: bool
 
 
+@dataclass
+class KnotTerm:
+    """One phase's mapped knot function in the NLP: constraints ``g_label`` (ng x K, knot by
+    knot) and running cost ``(T / N) * sum_k weights[k] * L_k``. Inputs per knot:
+    (q, v, a, tau, lam, anchor, prm) with ``prm`` the MX expression of the parameters."""
+
+    phase: int
+    function: ca.Function
+    g_label: str
+    weights: np.ndarray
+    prm: ca.MX
+
+
 # ----- the problem ------------------------------------------------------------------
 class TrickProblem:
     """The NLP of one trick structure on one robot: built once, solved many times.
@@ -379,11 +392,15 @@ class TrickProblem:
             n = expr.numel()
             expr = ca.reshape(expr, n, 1)
             g.append(expr)
+            self.g_parts.append((label, expr))
             lbg.append(np.broadcast_to(np.asarray(lo, float), (n,)).copy())
             ubg.append(np.broadcast_to(np.asarray(hi, float), (n,)).copy())
             self.g_names.append((label, n))
 
-        J = 0
+        J = 0  # every cost term but the knot functions' running costs
+        J_knots = 0
+        self.g_parts: list[tuple[str, ca.MX]] = []
+        self.knot_terms: list[KnotTerm] = []
         terr = par("terrain")
         bars = par("bars")
         self.knot_fns = []
@@ -403,7 +420,8 @@ class TrickProblem:
             add(f"knots{i}", G, np.tile(lo, K), np.tile(hi, K))
             wtrap = np.ones(K)
             wtrap[0] = wtrap[-1] = 0.5
-            J = J + h * ca.mtimes(L, ca.DM(wtrap))
+            J_knots = J_knots + h * ca.mtimes(L, ca.DM(wtrap))
+            self.knot_terms.append(KnotTerm(i, F, f"knots{i}", wtrap, prm))
             # integration defects (scaled like the variables)
             dv = V[:, 1:] - V[:, :-1] - h / 2 * (A[:, :-1] + A[:, 1:])
             dq = Q[:, 1:] - Q[:, :-1] - h * V[:, :-1] - h ** 2 / 6 * (2 * A[:, :-1] + A[:, 1:])
@@ -480,7 +498,8 @@ class TrickProblem:
         J = J + costs[4] * ca.sumsqr(par("landing_mask") * (q_end - par("landing_pose")))
         self._g_lb = np.concatenate(lbg)
         self._g_ub = np.concatenate(ubg)
-        self.nlp = {"x": xs, "p": p, "f": J, "g": ca.vertcat(*g)}
+        self.nlp = {"x": xs, "p": p, "f": J_knots + J, "g": ca.vertcat(*g)}
+        self.f_rest = J  # the objective without the knot running costs (see derivatives.py)
         self._xs, self._p = xs, p
 
     # --- cached small functions ---------------------------------------------------
