@@ -4,6 +4,11 @@ Measured in one run on this machine: for each template the NLP build time, the c
 (time and IPOPT iterations), and warm re-solves after nudging one keyframe by 0.1 rad and after
 doubling the effort weight, each the median of ``--repeats`` runs, with the warm/cold ratio.
 Targets (issue text): backflip cold build + solve <= 3 s, warm re-solve <= 0.5 s.
+
+Each template is measured twice: with the per-knot derivative functions on CasADi's SX virtual
+machine (``sx``: a machine without a C compiler, or the first build of a structure) and with
+them compiled (``c``: loaded from the compile cache, filled once before the timing; the compile
+time is printed beside it). See :mod:`kipup.core.jit`.
 """
 from __future__ import annotations
 
@@ -19,6 +24,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--templates", nargs="+", default=None, metavar="NAME", help="default: all")
     p.add_argument("--repeats", type=int, default=1, help="runs per figure, median reported (issue: 5)")
     p.add_argument("--quick", action="store_true", help="backflip only, one repeat")
+    p.add_argument("--derivatives", choices=("sx", "c", "both"), default="both",
+                   help="per-knot derivative functions: SX, compiled, or both rows (default)")
 
 
 def _nudged(trick):
@@ -32,20 +39,35 @@ def _nudged(trick):
 
 
 def run(args: argparse.Namespace) -> int:
+    from .jit import CompileCache
     from .solver import TrickSolver
     from .templates import load_template, template_names
 
     names = ["backflip"] if args.quick else (args.templates or template_names())
     reps = 1 if args.quick else max(1, args.repeats)
-    rows = []
-    for name in names:
+    variants = {"sx": ["sx"], "c": ["c"], "both": ["sx", "c"]}[getattr(args, "derivatives", "both")]
+    if "c" in variants and CompileCache().compiler is None:
+        print("no C compiler found: compiled rows skipped")
+        variants = [v for v in variants if v != "c"] or ["sx"]
+    rows, notes = [], []
+    for name, variant in ((n, v) for n in names for v in variants):
         trick, robot = load_template(name)
+        mode = "never" if variant == "sx" else "auto"
+        if variant == "c":  # fill the compile cache outside the timing
+            t0 = time.perf_counter()
+            probe = TrickSolver(trick, robot, compile="wait")
+            probe._shared_derivatives()
+            state = "compiled" if probe.compiled.compiled_now else "found in the cache"
+            notes.append(f"{name}: per-knot derivatives {state} in {time.perf_counter() - t0:.1f} s "
+                         f"({probe.compiled.directory})" + (f"; {probe.compiled.error}" if probe.compiled.error else ""))
         builds, colds, iters, warm_k, warm_w, iters_k, iters_w, status = [], [], [], [], [], [], [], []
         for _ in range(reps):
             t0 = time.perf_counter()
-            solver = TrickSolver(trick, robot)
+            solver = TrickSolver(trick, robot, compile=mode)
             solver.prepare(trick, warm=False)
             builds.append(time.perf_counter() - t0)
+            if variant == "c" and not solver.compiled.loaded:
+                status.append("not-compiled")
             out = solver.solve(trick)
             colds.append(out.solve_time)
             iters.append(out.iterations)
@@ -62,20 +84,22 @@ def run(args: argparse.Namespace) -> int:
                 its.append(w.iterations)
                 status.append(w.status)
         med = statistics.median
-        rows.append((name, med(builds), med(colds), med(iters), med(warm_k), med(iters_k),
+        rows.append((f"{name} {variant}", med(builds), med(colds), med(iters), med(warm_k), med(iters_k),
                      med(warm_w), med(iters_w), ",".join(sorted(set(status)))))
-    head = ("template", "build s", "cold s", "it", "warm(kf) s", "it", "warm(w) s", "it",
+    head = ("template derivs", "build s", "cold s", "it", "warm(kf) s", "it", "warm(w) s", "it",
             "warm/cold", "statuses")
-    print("  ".join(f"{h:>10}" for h in head))
+    print(f"{head[0]:>20}  " + "  ".join(f"{h:>10}" for h in head[1:]))
     for r in rows:
         ratio = max(r[4], r[6]) / r[2] if r[2] > 0 else float("nan")
-        print(f"{r[0]:>10}  {r[1]:10.2f}  {r[2]:10.2f}  {r[3]:10.0f}  {r[4]:10.3f}  {r[5]:10.0f}  "
+        print(f"{r[0]:>20}  {r[1]:10.2f}  {r[2]:10.2f}  {r[3]:10.0f}  {r[4]:10.3f}  {r[5]:10.0f}  "
               f"{r[6]:10.3f}  {r[7]:10.0f}  {ratio:10.3f}  {r[8]:>10}")
     for r in rows:
-        if r[0] == "backflip":
+        if r[0].startswith("backflip "):
             cold = r[1] + r[2]
             warm = max(r[4], r[6])
-            print(f"backflip cold build+solve {cold:.2f} s: {cold / TARGET_COLD:.2f} x the {TARGET_COLD} s target; "
+            print(f"{r[0]}: cold build+solve {cold:.2f} s: {cold / TARGET_COLD:.2f} x the {TARGET_COLD} s target; "
                   f"warm re-solve {warm:.3f} s: {warm / TARGET_WARM:.2f} x the {TARGET_WARM} s target")
-    print(f"(median of {reps}; warm(kf): one keyframe nudged by 0.1 rad; warm(w): effort weight doubled)")
+    for note in notes:
+        print(note)
+    print(f"(median of {reps}; derivs: per-knot derivative functions on the SX VM or compiled; warm(kf): one keyframe nudged by 0.1 rad; warm(w): effort weight doubled)")
     return 0

@@ -23,6 +23,7 @@ Derivatives are with respect to the scaled decision vector ``x`` (the NLP's vari
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import casadi as ca
 import numpy as np
@@ -41,9 +42,9 @@ class _KnotDerivatives:
     weights: ca.DM  # trapezoidal weights (1 x K)
     lam_rows: np.ndarray  # global g rows of the knot constraints (ngk*K,), knot by knot
     index: np.ndarray  # global x index of z per knot (K x nz)
-    grad: ca.Function  # (z, prm, w) -> (cost, d cost / dz)
-    jac: ca.Function  # (z, prm) -> (G, nonzeros of dG/dz)
-    hess: ca.Function  # (z, prm, lam, sigma, w) -> nonzeros of the full Hessian of the knot Lagrangian
+    grad: ca.Function  # one knot: (z, prm, w) -> (cost, d cost / dz)
+    jac: ca.Function  # one knot: (z, prm) -> (G, nonzeros of dG/dz)
+    hess: ca.Function  # one knot: (z, prm, lam, sigma, w) -> nonzeros of the knot Lagrangian's Hessian
     jac_rc: tuple[np.ndarray, np.ndarray]  # local (row, col) of the Jacobian nonzeros
     hess_rc: tuple[np.ndarray, np.ndarray]  # local (row, col) of the Hessian nonzeros
 
@@ -113,12 +114,19 @@ def _knot_derivatives(prob: TrickProblem, term: KnotTerm, xp: ca.MX, g_offset: i
     return _KnotDerivatives(
         K=K, inputs=ca.vertcat(*mx_parts), prm=ca.repmat(term.prm, 1, K),
         weights=ca.DM(term.weights).T, lam_rows=g_offset + np.arange(ngk * K),
-        index=index, grad=grad.map(K, "serial"), jac=jac.map(K, "serial"),
-        hess=hess.map(K, "serial"), jac_rc=_rc(dG.sparsity()), hess_rc=_rc(H.sparsity()))
+        index=index, grad=grad, jac=jac, hess=hess, jac_rc=_rc(dG.sparsity()), hess_rc=_rc(H.sparsity()))
 
 
-def structured_derivatives(prob: TrickProblem) -> dict[str, ca.Function]:
-    """``grad_f``, ``jac_g`` and ``hess_lag`` for ``nlpsol`` over ``prob.nlp``."""
+def structured_derivatives(prob: TrickProblem,
+                           replace: Callable[[list[ca.Function]], list[ca.Function] | None] | None = None,
+                           ) -> dict[str, ca.Function]:
+    """``grad_f``, ``jac_g`` and ``hess_lag`` for ``nlpsol`` over ``prob.nlp``.
+
+    replace: given the per-knot SX functions (gradient, Jacobian, Hessian of every phase),
+    returns functions with the same signatures to use instead (compiled ones,
+    :mod:`kipup.core.jit`), or None to keep them. The rest stays SX: its functions take the
+    whole decision vector and C compilers take minutes over them (4 MB of C for the backflip).
+    """
     X = prob.x
     n = X.n
     scale = np.asarray(X.scale, float)
@@ -148,6 +156,11 @@ def structured_derivatives(prob: TrickProblem) -> dict[str, ca.Function]:
     rest_hess = ca.Function("rest_hess", [x_s, p_s, sigma_s, lam_r], [ca.vertcat(*Hr.nonzeros())])
     jr_r, jr_c = _rc(Jr.sparsity())
     hr_r, hr_c = _rc(Hr.sparsity())
+    if replace is not None:
+        new = replace([f for kd in knots for f in (kd.grad, kd.jac, kd.hess)])
+        if new is not None:
+            for i, kd in enumerate(knots):
+                kd.grad, kd.jac, kd.hess = new[3 * i:3 * i + 3]
 
     lam_f = ca.MX.sym("lam_f")
     lam_g = ca.MX.sym("lam_g", ng)
@@ -160,7 +173,7 @@ def _gradient(xs: ca.MX, p: ca.MX, n: int, scale: np.ndarray, knots: list[_KnotD
               rest_grad: ca.Function) -> ca.Function:
     f, grad = rest_grad(xs, p)
     for kd in knots:
-        cost, dz = kd.grad(kd.inputs, kd.prm, kd.weights)
+        cost, dz = kd.grad.map(kd.K, "serial")(kd.inputs, kd.prm, kd.weights)
         nz = kd.index.shape[1]
         gi = kd.index.reshape(-1)  # knot-major, like vec(dz)
         S = _sparse_dm(gi, np.arange(kd.K * nz), scale[gi], (n, kd.K * nz))
@@ -178,7 +191,7 @@ def _jacobian(xs: ca.MX, p: ca.MX, n: int, ng: int, scale: np.ndarray, knots: li
     src_len = [len(jr_r)]
     g_terms = [(rest_rows, g_r)]
     for kd in knots:
-        G, jnz = kd.jac(kd.inputs, kd.prm)
+        G, jnz = kd.jac.map(kd.K, "serial")(kd.inputs, kd.prm)
         lr, lc = kd.jac_rc
         ngk = G.shape[0]
         k = np.arange(kd.K)[:, None]
@@ -216,7 +229,7 @@ def _hessian(xs: ca.MX, p: ca.MX, lam_f: ca.MX, lam_g: ca.MX, n: int, scale: np.
     for kd in knots:
         ngk = len(kd.lam_rows) // kd.K
         lam_k = ca.reshape(lam_g[kd.lam_rows[0]:kd.lam_rows[0] + len(kd.lam_rows)], ngk, kd.K)
-        hnz = kd.hess(kd.inputs, kd.prm, lam_k, ca.repmat(lam_f, 1, kd.K), kd.weights)
+        hnz = kd.hess.map(kd.K, "serial")(kd.inputs, kd.prm, lam_k, ca.repmat(lam_f, 1, kd.K), kd.weights)
         lr, lc = kd.hess_rc
         k = np.arange(kd.K)[:, None]
         gi, gj = kd.index[k, lr[None, :]], kd.index[k, lc[None, :]]
