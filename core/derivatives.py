@@ -83,8 +83,8 @@ def _knot_derivatives(prob: TrickProblem, term: KnotTerm, xp: ca.MX, g_offset: i
     dG = ca.jacobian(G, z)
     H = ca.hessian(ca.dot(lam, G) + sigma * cost, z)[0]
     grad = ca.Function(f"knot{ph.index}_grad", [z, prm, w], [cost, ca.gradient(cost, z)])
-    jac = ca.Function(f"knot{ph.index}_jac", [z, prm], [G, ca.vertcat(*dG.nonzeros())])
-    hess = ca.Function(f"knot{ph.index}_hess", [z, prm, lam, sigma, w], [ca.vertcat(*H.nonzeros())])
+    jac = ca.Function(f"knot{ph.index}_jac", [z, prm], [G, dG.nz[:]])
+    hess = ca.Function(f"knot{ph.index}_hess", [z, prm, lam, sigma, w], [H.nz[:]])
 
     # global indices of z at every knot
     def cols(name: str, rows: int) -> np.ndarray:
@@ -152,8 +152,8 @@ def structured_derivatives(prob: TrickProblem,
     Jr = ca.jacobian(g_r, x_s)
     Hr = ca.triu(ca.hessian(sigma_s * f_r + ca.dot(lam_r, g_r), x_s)[0])
     rest_grad = ca.Function("rest_grad", [x_s, p_s], [f_r, ca.gradient(f_r, x_s)])
-    rest_jac = ca.Function("rest_jac", [x_s, p_s], [g_r, ca.vertcat(*Jr.nonzeros())])
-    rest_hess = ca.Function("rest_hess", [x_s, p_s, sigma_s, lam_r], [ca.vertcat(*Hr.nonzeros())])
+    rest_jac = ca.Function("rest_jac", [x_s, p_s], [g_r, Jr.nz[:]])
+    rest_hess = ca.Function("rest_hess", [x_s, p_s, sigma_s, lam_r], [Hr.nz[:]])
     jr_r, jr_c = _rc(Jr.sparsity())
     hr_r, hr_c = _rc(Hr.sparsity())
     if replace is not None:
@@ -260,3 +260,12 @@ def _nz_positions(m: sps.csc_matrix, rows: np.ndarray, cols: np.ndarray) -> np.n
     ref = c * m.shape[0] + r  # sorted, since CCS with sorted indices
     pos = np.searchsorted(ref, key)
     return pos
+
+
+def whole_graph_derivatives(prob: TrickProblem) -> dict[str, ca.Function]:
+    """The same three functions the way CasADi makes them by itself: ``nlpsol`` differentiates
+    the whole MX graph and the results are expanded to SX. Slower to build (the backflip: about
+    4x); kept as the reference for the tests and the benchmark's baseline."""
+    probe = ca.nlpsol("kipup_reference", "ipopt", prob.nlp, {"print_time": False})
+    return {name: probe.get_function(fn).expand()
+            for name, fn in (("grad_f", "nlp_grad_f"), ("jac_g", "nlp_jac_g"), ("hess_lag", "nlp_hess_l"))}
