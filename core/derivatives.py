@@ -188,7 +188,6 @@ def _jacobian(xs: ca.MX, p: ca.MX, n: int, ng: int, scale: np.ndarray, knots: li
     # global (row, col, coefficient, source) of every nonzero
     rows, cols, coef = [rest_rows[jr_r]], [jr_c], [np.ones(len(jr_c))]  # rest: already in x
     sources: list[ca.MX] = [jr_nz]
-    src_len = [len(jr_r)]
     g_terms = [(rest_rows, g_r)]
     for kd in knots:
         G, jnz = kd.jac.map(kd.K, "serial")(kd.inputs, kd.prm)
@@ -201,17 +200,8 @@ def _jacobian(xs: ca.MX, p: ca.MX, n: int, ng: int, scale: np.ndarray, knots: li
         cols.append(gcol.reshape(-1))
         coef.append(scale[gcol.reshape(-1)])
         sources.append(ca.vec(jnz))
-        src_len.append(grow.size)
         g_terms.append((kd.lam_rows, ca.vec(G)))
-    rows_a, cols_a, coef_a = np.concatenate(rows), np.concatenate(cols), np.concatenate(coef)
-    sp_m = sps.csc_matrix((np.ones(len(rows_a)), (rows_a, cols_a)), shape=(ng, n))
-    sp_m.sum_duplicates()
-    sp_m.sort_indices()
-    sp = ca.Sparsity(ng, n, sp_m.indptr.tolist(), sp_m.indices.tolist())
-    nzpos = _nz_positions(sp_m, rows_a, cols_a)
-    src = ca.vertcat(*sources)
-    S = _sparse_dm(nzpos, np.arange(len(rows_a)), coef_a, (sp_m.nnz, len(rows_a)))
-    jac = ca.MX(sp, ca.densify(ca.mtimes(S, src)))
+    jac = _scatter(rows, cols, coef, sources, (ng, n))
     g = 0
     for grows, expr in g_terms:
         P = _sparse_dm(grows, np.arange(len(grows)), np.ones(len(grows)), (ng, len(grows)))
@@ -240,16 +230,22 @@ def _hessian(xs: ca.MX, p: ca.MX, lam_f: ca.MX, lam_g: ca.MX, n: int, scale: np.
         cols.append(gj)
         coef.append(scale[gi] * scale[gj])
         sources.append(ca.vec(hnz)[src_idx.tolist()])
-    rows_a, cols_a, coef_a = np.concatenate(rows), np.concatenate(cols), np.concatenate(coef)
-    sp_m = sps.csc_matrix((np.ones(len(rows_a)), (rows_a, cols_a)), shape=(n, n))
-    sp_m.sum_duplicates()
-    sp_m.sort_indices()
-    sp = ca.Sparsity(n, n, sp_m.indptr.tolist(), sp_m.indices.tolist())
-    nzpos = _nz_positions(sp_m, rows_a, cols_a)
-    S = _sparse_dm(nzpos, np.arange(len(rows_a)), coef_a, (sp_m.nnz, len(rows_a)))
-    H = ca.MX(sp, ca.densify(ca.mtimes(S, ca.vertcat(*sources))))
+    H = _scatter(rows, cols, coef, sources, (n, n))
     return ca.Function("nlp_hess_l", [xs, p, lam_f, lam_g], [H],
                        ["x", "p", "lam_f", "lam_g"], ["triu_hess_gamma_x_x"])
+
+
+def _scatter(rows: list[np.ndarray], cols: list[np.ndarray], coef: list[np.ndarray],
+             sources: list[ca.MX], shape: tuple[int, int]) -> ca.MX:
+    """The sparse matrix whose entry (rows[i][k], cols[i][k]) sums coef[i][k] * sources[i][k]."""
+    rows_a, cols_a, coef_a = np.concatenate(rows), np.concatenate(cols), np.concatenate(coef)
+    sp_m = sps.csc_matrix((np.ones(len(rows_a)), (rows_a, cols_a)), shape=shape)
+    sp_m.sum_duplicates()
+    sp_m.sort_indices()
+    sp = ca.Sparsity(shape[0], shape[1], sp_m.indptr.tolist(), sp_m.indices.tolist())
+    nzpos = _nz_positions(sp_m, rows_a, cols_a)
+    S = _sparse_dm(nzpos, np.arange(len(rows_a)), coef_a, (sp_m.nnz, len(rows_a)))
+    return ca.MX(sp, ca.densify(ca.mtimes(S, ca.vertcat(*sources))))
 
 
 def _nz_positions(m: sps.csc_matrix, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
