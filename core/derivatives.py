@@ -63,7 +63,7 @@ def _rc(sp: ca.Sparsity) -> tuple[np.ndarray, np.ndarray]:
     return np.asarray(r, dtype=np.int64), np.asarray(c, dtype=np.int64)
 
 
-def _knot_derivatives(prob: TrickProblem, term: KnotTerm, xp: ca.MX, g_offset: int) -> _KnotDerivatives:
+def _knot_derivatives(prob: TrickProblem, term: KnotTerm, g_offset: int) -> _KnotDerivatives:
     X = prob.x
     ph = prob.phases[term.phase]
     K, N = ph.K, ph.N
@@ -100,19 +100,9 @@ def _knot_derivatives(prob: TrickProblem, term: KnotTerm, xp: ca.MX, g_offset: i
     parts.append(np.full((K, 1), X.blocks[f"T{ph.index}"].offset))
     index = np.concatenate(parts, axis=1)
 
-    def blk(name: str, rows: int) -> ca.MX:
-        b = X.blocks[name]
-        return ca.reshape(xp[b.offset:b.offset + b.size], rows, b.cols)
-
-    mx_parts = [blk(f"q{ph.index}", sizes[0]), blk(f"v{ph.index}", sizes[1]),
-                blk(f"a{ph.index}", sizes[2]), blk(f"tau{ph.index}", sizes[3])]
-    if ph.nc:
-        mx_parts.append(blk(f"lam{ph.index}", sizes[4]))
-        mx_parts.append(ca.repmat(blk(f"anchor{ph.index}", sizes[5]), 1, K))
-    mx_parts.append(ca.repmat(blk(f"T{ph.index}", 1), 1, K))
     ngk = F.size1_out(0)
     return _KnotDerivatives(
-        K=K, inputs=ca.vertcat(*mx_parts), prm=ca.repmat(term.prm, 1, K),
+        K=K, inputs=term.inputs, prm=ca.repmat(term.prm, 1, K),
         weights=ca.DM(term.weights).T, lam_rows=g_offset + np.arange(ngk * K),
         index=index, grad=grad, jac=jac, hess=hess, jac_rc=_rc(dG.sparsity()), hess_rc=_rc(H.sparsity()))
 
@@ -131,19 +121,14 @@ def structured_derivatives(prob: TrickProblem,
     n = X.n
     scale = np.asarray(X.scale, float)
     xs, p = prob._xs, prob._p
-    xp = xs * ca.DM(scale)
     ng = int(prob.nlp["g"].numel())
-    offsets, at = {}, 0
-    for label, expr in prob.g_parts:
-        offsets[label] = (at, int(expr.numel()))
-        at += int(expr.numel())
     knot_labels = {t.g_label for t in prob.knot_terms}
-    knots = [_knot_derivatives(prob, t, xp, offsets[t.g_label][0]) for t in prob.knot_terms]
+    knots = [_knot_derivatives(prob, t, prob.g_offset(t.g_label)) for t in prob.knot_terms]
 
     # the rest, expanded to SX
     rest_parts = [(label, expr) for label, expr in prob.g_parts if label not in knot_labels]
-    rest_rows = np.concatenate([offsets[label][0] + np.arange(offsets[label][1])
-                                for label, _ in rest_parts]) if rest_parts else np.zeros(0, np.int64)
+    rest_rows = np.concatenate([prob.g_offset(label) + np.arange(int(expr.numel()))
+                                for label, expr in rest_parts]) if rest_parts else np.zeros(0, np.int64)
     g_rest_mx = ca.vertcat(*[e for _, e in rest_parts]) if rest_parts else ca.MX(0, 1)
     rest = ca.Function("rest", [xs, p], [prob.f_rest, g_rest_mx]).expand()
     x_s, p_s = ca.SX.sym("x", n), ca.SX.sym("p", prob.p.n)

@@ -165,13 +165,16 @@ class ReachLayout:
 class KnotTerm:
     """One phase's mapped knot function in the NLP: constraints ``g_label`` (ng x K, knot by
     knot) and running cost ``(T / N) * sum_k weights[k] * L_k``. Inputs per knot:
-    (q, v, a, tau, lam, anchor, prm) with ``prm`` the MX expression of the parameters."""
+    (q, v, a, tau, lam, anchor, prm) with ``prm`` the MX expression of the parameters.
+    ``inputs``: the knot variables (q, v, a, tau, lam, anchor, T) stacked per knot (rows x K,
+    physical units), for the derivatives."""
 
     phase: int
     function: ca.Function
     g_label: str
     weights: np.ndarray
     prm: ca.MX
+    inputs: ca.MX
 
 
 # ----- the problem ------------------------------------------------------------------
@@ -421,7 +424,8 @@ class TrickProblem:
             wtrap = np.ones(K)
             wtrap[0] = wtrap[-1] = 0.5
             J_knots = J_knots + h * ca.mtimes(L, ca.DM(wtrap))
-            self.knot_terms.append(KnotTerm(i, F, f"knots{i}", wtrap, prm))
+            z = ca.vertcat(Q, V, A, TAU, LAM, ca.repmat(anchor, 1, K), ca.repmat(T, 1, K))
+            self.knot_terms.append(KnotTerm(i, F, f"knots{i}", wtrap, prm, z))
             # integration defects (scaled like the variables)
             dv = V[:, 1:] - V[:, :-1] - h / 2 * (A[:, :-1] + A[:, 1:])
             dq = Q[:, 1:] - Q[:, :-1] - h * V[:, :-1] - h ** 2 / 6 * (2 * A[:, :-1] + A[:, 1:])
