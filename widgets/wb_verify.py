@@ -160,6 +160,7 @@ class VerifyMixin:
         self.verdict.add_class("kipup-verdict")
         self.sweep_n = W.BoundedIntText(value=SWEEP_SAMPLES, min=2, max=500, description="samples",
                                         style={"description_width": "60px"}, layout=W.Layout(width="140px"))
+        self.sweep_n.add_class("kipup-sweep-samples")
         self.sweep_button = W.Button(description="Robustness", icon="random")
         self.sweep_button.add_class("kipup-robustness")
         self.sweep_summary = W.HTML(value="")

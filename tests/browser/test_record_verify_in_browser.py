@@ -12,7 +12,9 @@ then the test:
    landing, pitch error at touchdown, the tracking error of every joint of the robot) and that
    the violet simulated ghost is drawn in the 3D view: the scrubber is dragged to where the
    simulated robot has parted from the plan, and the view with the ghost shown (its checkbox) is
-   compared with the view with it hidden.
+   compared with the view with it hidden;
+3. sets the Robustness sweep to a few samples and clicks *Robustness*; checks the summary names
+   that many samples, a success rate, no sample that could not run, and the pitch error quantiles.
 
 How long each click took to show its result is measured and written to
 ``test-artifacts/browser/record_verify_timings.json`` (printed, not asserted). Screenshots:
@@ -36,6 +38,7 @@ MARKER = "06.done"
 RUN_TIMEOUT_S = 300.0     # the tutorial runs in about 40 s here
 RESULT_TIMEOUT_MS = 180_000
 RECORD_SIZE = (960, 540)  # kipup.widgets.wb_record.RECORD_SIZE, the default frame size of a recording
+SWEEP_SAMPLES = 4         # a short sweep: two rounds of the two worker processes
 JOINTS = ("hip", "knee", "ankle", "shoulder", "elbow")  # the bundled humanoid's joints (core/data/robots)
 
 
@@ -255,4 +258,29 @@ def test_record_and_simulate_with_the_mouse(page, lab_server):
     print(json.dumps(timings, indent=2))
     assert n > 300 and gain > 150, (f"no violet simulated ghost at t = {playhead} s: {n} pixels change when it "
                                     f"is hidden, {gain} more violet pixels with it")
+
+    # --- 3. Robustness ---------------------------------------------------------------------------
+    # a short sweep: its samples run in worker processes started from the kernel's thread
+    samples = root.locator(".kipup-sweep-samples input")
+    samples.scroll_into_view_if_needed()
+    samples.fill(str(SWEEP_SAMPLES))
+    samples.press("Enter")
+    summary = root.locator(".kipup-sweep")
+    t_click = time.time()
+    root.locator("button.kipup-robustness").click()
+    page.wait_for_function(
+        "() => /samples in|could not run/.test(document.querySelector('.kipup-workbench .kipup-sweep').textContent)",
+        timeout=RESULT_TIMEOUT_MS)
+    timings["robustness_click_to_summary_s"] = round(time.time() - t_click, 2)
+    text = summary.text_content()
+    assert f"{SWEEP_SAMPLES} samples in" in text, f"sweep summary: {text!r}"
+    rate = re.search(r"success rate\s*(\d+) %", text)
+    assert rate and 0 <= int(rate.group(1)) <= 100, f"no success rate in the sweep summary: {text!r}"
+    failed = re.search(r"could not run \(worker died, error\)\s*(\d+)", text)
+    assert failed and failed.group(1) == "0", f"sweep samples could not run: {text!r}"
+    assert re.search(r"\|pitch error at touchdown\|\s*median \d", text), f"no pitch error quantiles: {text!r}"
+    _shot(page, summary, "rv_7_robustness")
+    timings["load_average_at_end"] = [round(x, 2) for x in os.getloadavg()]
+    out.write_text(json.dumps(timings, indent=2) + "\n")
+    print(f"robustness: {text}")
     page.console.assert_clean()
