@@ -134,7 +134,17 @@ def structured_derivatives(prob: TrickProblem,
     x_s, p_s = ca.SX.sym("x", n), ca.SX.sym("p", prob.p.n)
     f_r, g_r = rest(x_s, p_s)
     lam_r, sigma_s = ca.SX.sym("lam", g_r.numel()), ca.SX.sym("sigma")
-    Jr = ca.jacobian(g_r, x_s)
+    # The Jacobian part by part (same sparsity, measured: the reach jump 0.63 s whole against
+    # 0.06 s by parts, the backflip 0.09 against 0.06): a whole-vector Jacobian is colored as one,
+    # and a row that touches every knot of a phase (a point reaching a target at a free time)
+    # makes every sweep run over the whole graph. The Hessian is no faster by parts.
+    jac_blocks = []
+    start = 0
+    for _, expr in rest_parts:
+        m = int(expr.numel())
+        jac_blocks.append(ca.jacobian(g_r[start:start + m], x_s))
+        start += m
+    Jr = ca.vertcat(*jac_blocks) if jac_blocks else ca.SX(0, n)
     Hr = ca.triu(ca.hessian(sigma_s * f_r + ca.dot(lam_r, g_r), x_s)[0])
     rest_grad = ca.Function("rest_grad", [x_s, p_s], [f_r, ca.gradient(f_r, x_s)])
     rest_jac = ca.Function("rest_jac", [x_s, p_s], [g_r, Jr.nz[:]])
