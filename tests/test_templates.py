@@ -88,6 +88,14 @@ def _phase_time(motion, trick, phase: str, fraction: float) -> float:
     return span.start + fraction * (span.end - span.start)
 
 
+def assert_smooth_start(robot, motion):
+    """The push starts from the standing torques: the first knot-to-knot torque step is under a
+    tenth of each joint's peak torque (measured at most 0.015 with the knees bent at the start;
+    from straight knees, the leg's singular pose, the box jump's hip steps 0.16 of its peak)."""
+    step = np.abs(motion.tau[1] - motion.tau[0]) / np.asarray(robot.peak_torque)
+    assert step.max() < 0.1, dict(zip(robot.joint_names, step.round(3)))
+
+
 def check_box_jump(trick, robot, motion):
     """Both feet end on the box top, over the box, and the base is in the landing range."""
     box = trick.terrain.boxes[0]
@@ -109,6 +117,7 @@ def check_reach_jump(trick, robot, motion):
     assert np.hypot(hand[0] - target.x, hand[1] - target.z) < 0.01
     # and it is a jump: the reach happens in the air
     assert motion.metrics(robot).flight_time > 0.2
+    assert_smooth_start(robot, motion)
 
 
 def check_broad_jump(trick, robot, motion):
@@ -116,6 +125,7 @@ def check_broad_jump(trick, robot, motion):
     lo, hi = trick.goals.landing_x
     assert lo - 1e-6 <= motion.q[-1, 0] <= hi + 1e-6
     assert motion.q[-1, 0] - motion.q[0, 0] > 0.5
+    assert_smooth_start(robot, motion)
 
 
 def check_quadruped_jump(trick, robot, motion):
