@@ -143,9 +143,21 @@ class _Iterations(ca.Callback):
     def get_sparsity_in(self, i: int) -> ca.Sparsity:
         return ca.Sparsity.dense(*self.sizes[ca.nlpsol_out(i)])
 
+    # CasADi's copy-free interface: the inputs arrive as memoryviews over IPOPT's own vectors
+    # instead of six freshly allocated DMs. Measured on the backflip (65 iterations): the DM
+    # interface cost 0.1-0.45 s of a 2.1 s cold solve, about 4 ms an iteration.
+    def has_eval_buffer(self) -> bool:
+        return True
+
+    def eval_buffer(self, arg: tuple, res: tuple) -> int:
+        x, f, g = (np.frombuffer(arg[i], dtype=np.float64) for i in range(3))
+        stop = self.owner._on_iteration(x, float(f[0]), g)
+        np.frombuffer(res[0], dtype=np.float64)[0] = 1.0 if stop else 0.0
+        return 0
+
     def eval(self, arg: list) -> list:
-        stop = self.owner._on_iteration(arg)
-        return [1 if stop else 0]
+        x, f, g = (np.asarray(a, dtype=np.float64).ravel() for a in arg[:3])
+        return [1 if self.owner._on_iteration(x, float(f[0]), g) else 0]
 
 
 class TrickSolver:
@@ -306,8 +318,10 @@ class TrickSolver:
             self.last = outcome
         return outcome
 
-    def _on_iteration(self, arg: list) -> bool:
-        """Called by IPOPT (through CasADi) once per iteration; True asks it to stop."""
+    def _on_iteration(self, x: np.ndarray, f: float, g: np.ndarray) -> bool:
+        """Called by IPOPT (through CasADi) once per iteration with the current scaled decision
+        vector, objective and constraint values (views of IPOPT's memory, valid during the call
+        only); True asks it to stop."""
         self._iter += 1
         now = time.perf_counter()
         if self._cancel is not None and self._cancel.is_set():
@@ -321,8 +335,6 @@ class TrickSolver:
             return True
         if self._listener is not None:
             lbg, ubg = self._bounds
-            g = np.asarray(arg[2]).ravel()
             inf = float(np.max(np.maximum(lbg - g, 0) + np.maximum(g - ubg, 0), initial=0.0))
-            self._listener(Progress(self._iter, float(arg[1]), inf, now - self._started,
-                                    np.asarray(arg[0]).ravel()))
+            self._listener(Progress(self._iter, f, inf, now - self._started, x.copy()))
         return False

@@ -313,6 +313,9 @@ def test_progress_events_carry_a_decodable_motion():
     mid = decode(solver.problem, trick, seen[len(seen) // 2].x, "running", report=False)
     assert mid.q.shape == (sum(p.knots + 1 for p in trick.phases), robot.nq)
     assert seen[-1].infeasibility < 1e-5 < seen[0].infeasibility
+    # each event owns its copy of the iterate (the callback reads IPOPT's memory in place)
+    assert not np.array_equal(seen[0].x, seen[-1].x)
+    assert not np.shares_memory(seen[0].x, seen[-1].x)
 
 
 # ----- bad input and infeasible problems ----------------------------------------------------
