@@ -19,6 +19,7 @@ from kipup.core.optimize import optimize
 from kipup.core.robot_file import read_yaml_file
 from kipup.core.templates import load_template, template_names, template_path
 from kipup.core.trick_file import load_trick, validate_trick_dict
+from motion_checks import assert_smooth_start
 
 NAMES = template_names()
 # Templates whose solve is tested elsewhere (one solve per template in the whole suite).
@@ -86,15 +87,6 @@ def test_cli_template_without_output_or_unknown_name(tmp_path: Path, capsys):
 def _phase_time(motion, trick, phase: str, fraction: float) -> float:
     span = motion.phases[trick.phase_index(phase)]
     return span.start + fraction * (span.end - span.start)
-
-
-def assert_smooth_start(robot, motion):
-    """The push starts from the standing torques: the first knot-to-knot torque step is under a
-    tenth of each joint's peak torque (measured at most 0.015 with the knees bent at the start;
-    from straight knees, the leg's singular pose, the box jump's hip steps 0.16 of its peak and
-    the backflip's 0.78)."""
-    step = np.abs(motion.tau[1] - motion.tau[0]) / np.asarray(robot.peak_torque)
-    assert step.max() < 0.1, dict(zip(robot.joint_names, step.round(3)))
 
 
 def check_box_jump(trick, robot, motion):
